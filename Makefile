@@ -1,0 +1,34 @@
+# Everything a fresh machine needs is installed from here: a local virtual
+# environment (.venv) for Python and node_modules/ for the MicroPython port.
+PYTHON ?= python3
+VENV := .venv
+PY := $(VENV)/bin/python
+STAMP := $(VENV)/.installed
+NODE_STAMP := node_modules/.installed
+DEMO_OUT ?= demo-out
+
+.PHONY: setup test demo bench clean
+
+setup: $(STAMP) $(NODE_STAMP)
+
+$(STAMP): pyproject.toml
+	$(PYTHON) -m venv $(VENV)
+	$(PY) -m pip install --quiet --upgrade pip
+	$(PY) -m pip install --quiet -e '.[test]'
+	touch $(STAMP)
+
+$(NODE_STAMP): package.json package-lock.json
+	npm ci --no-audit --no-fund --loglevel=error
+	touch $(NODE_STAMP)
+
+test: setup
+	$(PY) -m pytest -q
+
+demo: setup
+	$(VENV)/bin/slipless demo --out $(DEMO_OUT)
+
+bench: setup
+	$(PY) tests/bench/run_bench.py
+
+clean:
+	rm -rf $(VENV) node_modules $(DEMO_OUT) .pytest_cache

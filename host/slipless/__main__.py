@@ -1,0 +1,5 @@
+import sys
+
+from slipless.cli import main
+
+sys.exit(main())

@@ -1,0 +1,144 @@
+"""The `slipless` command line.
+
+Every user-facing failure is one line on stderr and a non-zero exit:
+2 for bad input or usage, 1 for anything unexpected (a bug: please report).
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+from typing import Sequence
+
+from rich.console import Console
+from rich.progress import BarColumn, DownloadColumn, Progress, TimeRemainingColumn
+from rich.table import Table
+
+from slipless import __version__
+from slipless.decoder import Decoder
+from slipless.errors import InputError, ProtocolVersionError, SliplessError
+from slipless.inputs import PROGRESS_OVER, check_input, read_chunks
+from slipless.protocol import wire
+from slipless.tables import FORMATS, TableSink
+
+EXIT_INPUT = 2
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message: str) -> None:  # one line, not the usage block
+        self.exit(EXIT_INPUT, f"slipless: error: {message} (see slipless --help)\n")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    p = _Parser(prog="slipless", description="Rotor board telemetry: decode, tables, demo.")
+    p.add_argument("--version", action="version", version=f"slipless {__version__}")
+    sub = p.add_subparsers(dest="command", required=True, parser_class=_Parser)
+
+    d = sub.add_parser("decode", help="decode captures or raw byte streams into tidy tables")
+    d.add_argument("inputs", nargs="+", type=Path, metavar="INPUT")
+    d.add_argument("--out", type=Path, required=True, metavar="DIR", help="folder for the tables")
+    d.add_argument("--format", choices=FORMATS, default="csv", help="table format (default csv)")
+    d.add_argument("--quiet", action="store_true", help="no progress bar or summary")
+
+    m = sub.add_parser("demo", help="simulate a run over a damaging link, decode it, write tables")
+    m.add_argument("--out", type=Path, default=Path("demo-out"), metavar="DIR")
+    m.add_argument("--seconds", type=float, default=120.0, help="simulated run length")
+    m.add_argument("--seed", type=int, default=1)
+    return p
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    args = build_parser().parse_args(argv)
+    console = Console(width=None if sys.stdout.isatty() else 110)
+    try:
+        if args.command == "decode":
+            return cmd_decode(args, console)
+        if args.command == "demo":
+            from slipless.demo import run_demo
+
+            return run_demo(args, console)
+    except SliplessError as exc:
+        print(f"slipless: error: {exc}", file=sys.stderr)
+        return EXIT_INPUT
+    except KeyboardInterrupt:
+        print("slipless: interrupted", file=sys.stderr)
+        return 130
+    return 1  # pragma: no cover - argparse enforces a command
+
+
+def decode_files(inputs: Sequence[Path], out: Path, fmt: str, console: Console | None) -> Decoder:
+    """Decode every input into tables in `out`; return the decoder for its counts."""
+    sizes = [check_input(p) for p in inputs]  # fail before writing anything
+    sink = TableSink(out, fmt)
+    dec = Decoder(sink)
+    show = console is not None and sum(sizes) > PROGRESS_OVER
+    with Progress("[progress.description]{task.description}", BarColumn(), DownloadColumn(),
+                  TimeRemainingColumn(), console=console, disable=not show) as bar:
+        for path, size in zip(inputs, sizes):
+            task = bar.add_task(path.name, total=size)
+            dec.new_input()
+            for chunk in read_chunks(path, lambda n, t=task: bar.advance(t, n)):
+                dec.feed(chunk)
+    dec.finish()
+    sink.close(list(dec.runs.values()), dec.missing, dec.corrupt_guess)
+    _check_outcome(dec, inputs)
+    return dec
+
+
+def _check_outcome(dec: Decoder, inputs: Sequence[Path]) -> None:
+    c = dec.counters
+    if c.bad_version and not dec.runs:
+        seen = ", ".join(str(v) for v in sorted(c.versions_seen))
+        raise ProtocolVersionError(
+            f"frames use protocol version {seen}; this slipless reads version {wire.VERSION}")
+    if not dec.runs:
+        names = ", ".join(str(p) for p in inputs)
+        raise InputError(f"{names}: no slipless frames found (not a capture, or wholly damaged)")
+
+
+def cmd_decode(args: argparse.Namespace, console: Console) -> int:
+    dec = decode_files(args.inputs, args.out, args.format, None if args.quiet else console)
+    if not args.quiet:
+        print_summary(dec, console)
+        console.print(f"tables written to {args.out}/")
+    return 0
+
+
+def print_summary(dec: Decoder, console: Console) -> None:
+    t = Table(title="decoded runs", title_justify="left")
+    for col in ("board", "run", "fw", "frames", "gaps", "missing", "corrupt", "dup", "samples",
+                "events", "end"):
+        t.add_column(col, justify="right")
+    for r in sorted(dec.runs.values(), key=lambda r: r.key):
+        corrupt = dec.corrupt_guess(r)
+        end = wire.END_REASON_NAMES.get(r.end["reason"], "?") if r.end else "(none seen)"
+        t.add_row(str(r.board), str(r.run), r.fw or "?", str(r.received), str(len(r.gaps)),
+                  str(dec.missing(r) - corrupt), str(corrupt), str(r.duplicates), str(r.samples),
+                  str(r.events), end)
+    console.print(t)
+    c = dec.counters
+    console.print(
+        f"bytes {c.bytes:,}  good frames {c.frames:,}  damaged segments {c.corrupt + c.overlong:,} "
+        f"({c.corrupt_bytes:,} B)  skipped at start {c.skipped_bytes:,} B")
+    notes = []
+    if c.unknown_kind:
+        notes.append(f"{c.unknown_kind} frames of a kind this release does not know were skipped")
+    if c.bad_version:
+        notes.append(f"{c.bad_version} frames of protocol version(s) "
+                     f"{sorted(c.versions_seen)} were skipped")
+    if c.malformed:
+        notes.append(f"{c.malformed} frames passed the CRC but did not match their layout")
+    for r in dec.runs.values():
+        if r.undecodable:
+            notes.append(f"board {r.board} run {r.run}: {r.undecodable} frames could not be "
+                         "decoded (no run descriptor seen)")
+        if r.ticks_uncertain:
+            notes.append(f"board {r.board} run {r.run}: {r.ticks_uncertain} frames have "
+                         "uncertain board time (long gap without a full tick)")
+    for n in notes:
+        console.print(f"note: {n}")
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

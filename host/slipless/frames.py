@@ -1,0 +1,89 @@
+"""Declarative frame bodies (construct), built from the layouts in protocol/wire.py.
+
+Only bodies whose CRC already passed reach these parsers. SAMPLES bodies go
+through a precompiled struct on the hot path (see decoder.py); tests check it
+against the declarative definition here.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from construct import (
+    Construct,
+    ConstructError,
+    Float32l,
+    GreedyBytes,
+    GreedyRange,
+    Int8sl,
+    Int8ul,
+    Int16sl,
+    Int16ul,
+    Int32sl,
+    Int32ul,
+    Int64ul,
+    PascalString,
+    Struct,
+    Terminated,
+)
+
+from slipless.protocol import wire
+
+_CODES: dict[str, Construct] = {
+    "B": Int8ul, "b": Int8sl, "H": Int16ul, "h": Int16sl, "I": Int32ul, "i": Int32sl,
+    "Q": Int64ul, "f": Float32l,
+}
+
+
+def fields(fmt: str, names: tuple[str, ...]) -> list[Construct]:
+    """Named construct fields for a '<'-prefixed struct format from wire.py."""
+    codes = fmt.lstrip("<")
+    if len(codes) != len(names):
+        raise ValueError(f"layout {fmt!r} and names {names!r} disagree")
+    return [name / _CODES[c] for name, c in zip(names, codes)]
+
+
+Text = PascalString(Int8ul, "utf8")
+
+Header = Struct(*fields(wire.HEADER, wire.HEADER_FIELDS))
+StreamEntry = Struct(*fields(wire.STREAM_ENTRY, wire.STREAM_FIELDS), "name" / Text, "unit" / Text)
+Descriptor = Struct(*fields(wire.DESCRIPTOR_FIXED, wire.DESCRIPTOR_FIELDS),
+                    "streams" / GreedyRange(StreamEntry), Terminated)
+Samples = Struct(*fields(wire.SAMPLES_FIXED, wire.SAMPLES_FIELDS), "values" / GreedyBytes)
+Event = Struct(*fields(wire.EVENT_ENTRY, wire.EVENT_FIELDS))
+Events = Struct("events" / GreedyRange(Event), Terminated)
+Status = Struct(*fields(wire.STATUS_BODY, wire.STATUS_FIELDS), Terminated)
+Sync = Struct(*fields(wire.SYNC_BODY, wire.SYNC_FIELDS), Terminated)
+Ack = Struct(*fields(wire.ACK_BODY, wire.ACK_FIELDS), Terminated)
+Error = Struct(*fields(wire.ERROR_BODY, wire.ERROR_FIELDS), Terminated)
+EndStream = Struct(*fields(wire.END_STREAM, wire.END_STREAM_FIELDS))
+End = Struct(*fields(wire.END_FIXED, wire.END_FIELDS), "totals" / GreedyRange(EndStream),
+             Terminated)
+Command = Struct(*fields(wire.COMMAND_FIXED, wire.COMMAND_FIELDS), "args" / GreedyBytes)
+
+BODIES: dict[int, Construct] = {
+    wire.DESCRIPTOR: Descriptor, wire.SAMPLES: Samples, wire.EVENTS: Events,
+    wire.STATUS: Status, wire.SYNC: Sync, wire.ACK: Ack, wire.ERROR: Error, wire.END: End,
+    wire.COMMAND: Command,
+}
+
+
+class MalformedFrame(Exception):
+    """A body passed its CRC but does not match its kind's layout (a sender bug)."""
+
+
+def _plain(obj: Any) -> Any:
+    """construct containers -> plain dicts and lists (private keys dropped)."""
+    if isinstance(obj, dict):
+        return {k: _plain(v) for k, v in obj.items() if not k.startswith("_")}
+    if isinstance(obj, list):
+        return [_plain(v) for v in obj]
+    return obj
+
+
+def parse_body(kind: int, payload: bytes) -> dict[str, Any]:
+    """Fields of one known kind's payload (the body after the header)."""
+    try:
+        return _plain(BODIES[kind].parse(payload))  # type: ignore[no-any-return]
+    except (ConstructError, UnicodeDecodeError) as exc:
+        raise MalformedFrame(f"{wire.KIND_NAMES[kind]} frame does not match its layout") from exc

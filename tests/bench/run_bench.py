@@ -1,0 +1,164 @@
+"""`make bench`: decoder throughput and memory, framing efficiency.
+
+Prints one line per figure, then one JSON line with every figure:
+  decode_MBps           streaming decode of a >= 100 MB capture (samples unpacked)
+  crc32_MBps            zlib.crc32 alone over the same bytes (the floor of any checked read)
+  construct_loop_MBps   a plain per-frame construct parse of the same frames
+  bytes_per_sample      bytes on air per sample, two 16-bit 1 kHz streams, default framing
+  decode_peak_rss_MB    peak resident memory of a process decoding the big capture
+  decode_peak_rss_small_MB  the same for a capture a tenth the size (memory must not grow)
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import resource
+import subprocess
+import sys
+import tempfile
+import time
+import zlib
+from pathlib import Path
+
+import numpy as np
+from cobs.cobs import encode as cobs_encode
+
+from slipless.protocol import wire
+
+H = ord("h")
+RATE = 1000
+STREAMS = [(0, H, 0, 1000, 1e-4, 0.0, "cap_amp", "V"), (1, H, 0, 1000, 1e-3, 0.0, "coil_current", "A")]
+
+
+def _seal(body: bytes) -> bytes:
+    return cobs_encode(body + zlib.crc32(body).to_bytes(4, "little")) + b"\x00"
+
+
+def write_capture(path: Path, target_bytes: int) -> int:
+    """A run like the demo's (frame mix of the default firmware settings).
+
+    The encoder's frame layout is used through wire's own structs; COBS is the
+    C package here only to make 100 MB in seconds. Returns samples written.
+    """
+    enc = wire.Encoder(1, 1)
+    per = wire.max_samples(H)
+    rng = np.random.default_rng(1)
+    block = rng.normal(2048, 300, size=(4096, per)).astype("<i2")
+    written = samples = 0
+    tick = 0
+    next_status, next_desc = 5_000_000, 10_000_000
+    with path.open("wb") as f:
+        f.write(enc.frame(enc.descriptor(0, 1_000_000, (0, 1, 0), 5000, 2, STREAMS)))
+        k = 0
+        while written < target_bytes:
+            chunk = bytearray()
+            for _ in range(2000):
+                for stream in (0, 1):
+                    head = bytearray(wire.HEADER_SIZE + wire.SAMPLES_FIXED_SIZE)
+                    enc.begin(wire.SAMPLES)
+                    head[: wire.HEADER_SIZE] = enc.body[: wire.HEADER_SIZE]
+                    head[wire.HEADER_SIZE] = stream
+                    head[wire.HEADER_SIZE + 1 :] = (tick & 0xFFFFFFFF).to_bytes(4, "little")
+                    chunk += _seal(bytes(head) + block[k % 4096].tobytes())
+                    enc.seq += 1
+                    k += 1
+                    samples += per
+                tick += per * 1000
+                if tick >= next_status:
+                    chunk += enc.frame(enc.status(tick, 3900, 2500, 90000, 3, 0, 0, 50))
+                    next_status += 5_000_000
+                if tick >= next_desc:
+                    chunk += enc.frame(enc.descriptor(tick, 1_000_000, (0, 1, 0), 5000, 2, STREAMS))
+                    next_desc += 10_000_000
+            f.write(chunk)
+            written += len(chunk)
+    return samples
+
+
+def decode_file(path: Path) -> tuple[float, int]:
+    from slipless.decoder import Decoder
+
+    dec = Decoder()
+    t0 = time.perf_counter()
+    with path.open("rb") as f:
+        while chunk := f.read(1 << 20):
+            dec.feed(chunk)
+    dec.finish()
+    dt = time.perf_counter() - t0
+    return dt, sum(r.samples for r in dec.runs.values())
+
+
+def crc_file(path: Path) -> float:
+    t0 = time.perf_counter()
+    with path.open("rb") as f:
+        while chunk := f.read(1 << 20):
+            zlib.crc32(chunk)
+    return time.perf_counter() - t0
+
+
+def construct_loop(path: Path, limit: int) -> tuple[float, int]:
+    """Per frame: split, COBS, CRC, then one construct parse of the whole body."""
+    from construct import Array, GreedyBytes, Int8ul, Int16sl, Int32ul, Struct, Switch, this
+    from cobs.cobs import decode as cobs_decode
+
+    frame = Struct(
+        "vk" / Int8ul, "board" / wire_u16(), "run" / wire_u16(), "seq" / Int32ul,
+        "body" / Switch(this.vk & 0x0F, {
+            wire.SAMPLES: Struct("stream" / Int8ul, "tick32" / Int32ul,
+                                 "values" / Array(wire.max_samples(H), Int16sl)),
+        }, default=GreedyBytes),
+    )
+    data = path.read_bytes()[:limit]
+    data = data[: data.rfind(b"\x00") + 1]
+    t0 = time.perf_counter()
+    for seg in data.split(b"\x00")[:-1]:
+        raw = cobs_decode(seg)
+        if zlib.crc32(raw) == 0x2144DF1C:
+            frame.parse(raw[:-4])
+    return time.perf_counter() - t0, len(data)
+
+
+def wire_u16():
+    from construct import Int16ul
+
+    return Int16ul
+
+
+def peak_rss(path: Path) -> float:
+    code = ("import resource,sys; sys.path.insert(0, %r); from run_bench import decode_file; "
+            "from pathlib import Path; decode_file(Path(%r)); "
+            "print(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss)")
+    out = subprocess.run([sys.executable, "-c", code % (str(Path(__file__).parent), str(path))],
+                         capture_output=True, text=True, check=True).stdout
+    return int(out.strip()) / 1024.0
+
+
+def main() -> int:
+    size = int(os.environ.get("BENCH_MB", "110")) << 20
+    figures: dict[str, float] = {}
+    with tempfile.TemporaryDirectory() as tmp:
+        big, small = Path(tmp) / "big.bin", Path(tmp) / "small.bin"
+        print(f"writing a {size >> 20} MB capture ...", flush=True)
+        n_samples = write_capture(big, size)
+        write_capture(small, size // 10)
+        mb = big.stat().st_size / 1e6
+        figures["capture_MB"] = round(mb, 1)
+        figures["bytes_per_sample"] = round(big.stat().st_size / n_samples, 4)
+        dt, got = decode_file(big)
+        assert got == n_samples, (got, n_samples)
+        figures["decode_MBps"] = round(mb / dt, 1)
+        figures["crc32_MBps"] = round(mb / crc_file(big), 1)
+        dt_c, n_c = construct_loop(big, 8 << 20)
+        figures["construct_loop_MBps"] = round(n_c / 1e6 / dt_c, 2)
+        figures["decode_vs_construct"] = round(figures["decode_MBps"] / figures["construct_loop_MBps"], 1)
+        figures["decode_peak_rss_MB"] = round(peak_rss(big), 1)
+        figures["decode_peak_rss_small_MB"] = round(peak_rss(small), 1)
+    for k, v in figures.items():
+        print(f"{k:28s} {v}")
+    print(json.dumps(figures, sort_keys=True))
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
