@@ -7,7 +7,7 @@ STAMP := $(VENV)/.installed
 NODE_STAMP := node_modules/.installed
 DEMO_OUT ?= demo-out
 
-.PHONY: setup test demo bench clean
+.PHONY: setup test lint demo bench clean
 
 setup: $(STAMP) $(NODE_STAMP)
 
@@ -21,8 +21,13 @@ $(NODE_STAMP): package.json package-lock.json
 	npm ci --no-audit --no-fund --loglevel=error
 	touch $(NODE_STAMP)
 
-test: setup
+test: setup lint
 	$(PY) -m pytest -q
+
+lint: setup
+	$(VENV)/bin/ruff check host protocol firmware tests
+	$(VENV)/bin/mypy host/slipless
+	$(PY) protocol/vectors/build.py --check
 
 demo: setup
 	$(VENV)/bin/slipless demo --out $(DEMO_OUT)

@@ -7,12 +7,14 @@ Every user-facing failure is one line on stderr and a non-zero exit:
 from __future__ import annotations
 
 import argparse
+import functools
 import sys
+from collections.abc import Sequence
 from pathlib import Path
-from typing import Sequence
+from typing import NoReturn
 
 from rich.console import Console
-from rich.progress import BarColumn, DownloadColumn, Progress, TimeRemainingColumn
+from rich.progress import BarColumn, DownloadColumn, Progress, TaskID, TimeRemainingColumn
 from rich.table import Table
 
 from slipless import __version__
@@ -26,7 +28,7 @@ EXIT_INPUT = 2
 
 
 class _Parser(argparse.ArgumentParser):
-    def error(self, message: str) -> None:  # one line, not the usage block
+    def error(self, message: str) -> NoReturn:  # one line, not the usage block
         self.exit(EXIT_INPUT, f"slipless: error: {message} (see slipless --help)\n")
 
 
@@ -78,12 +80,16 @@ def decode_files(inputs: Sequence[Path], out: Path, fmt: str, console: Console |
         for path, size in zip(inputs, sizes):
             task = bar.add_task(path.name, total=size)
             dec.new_input()
-            for chunk in read_chunks(path, lambda n, t=task: bar.advance(t, n)):
+            for chunk in read_chunks(path, functools.partial(_advance, bar, task)):
                 dec.feed(chunk)
     dec.finish()
     sink.close(list(dec.runs.values()), dec.missing, dec.corrupt_guess)
     _check_outcome(dec, inputs)
     return dec
+
+
+def _advance(bar: Progress, task: TaskID, n: int) -> None:
+    bar.advance(task, n)
 
 
 def _check_outcome(dec: Decoder, inputs: Sequence[Path]) -> None:

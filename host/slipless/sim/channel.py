@@ -4,8 +4,8 @@ flips and re-chunks bytes the way a radio link and a serial port do."""
 from __future__ import annotations
 
 import random
+from collections.abc import Iterable, Iterator
 from dataclasses import dataclass, field
-from typing import Iterable, Iterator
 
 from slipless.protocol import wire
 
