@@ -23,7 +23,7 @@ MAX_HELD = 4096  # frames per run waiting for a descriptor or an anchor (~3 min 
 _HEADER = struct.Struct(wire.HEADER)
 _SAMPLES_HEAD = struct.Struct(wire.HEADER + wire.SAMPLES_FIXED.lstrip("<"))
 _TICK_LIMIT = 1 << 31  # the nearest-tick rule is exact within +-2**31 us
-_ANCHOR_KINDS = (wire.DESCRIPTOR, wire.STATUS, wire.END)
+_ANCHOR_KINDS = (wire.DESCRIPTOR, wire.STATUS, wire.SYNC, wire.END)  # carry 64-bit ticks
 _VK_SAMPLES = (wire.VERSION << 4) | wire.SAMPLES
 _DTYPES = {0x62: "<i1", 0x42: "<u1", 0x68: "<i2", 0x48: "<u2", 0x69: "<i4", 0x49: "<u4",
            0x66: "<f4"}
@@ -75,6 +75,8 @@ class RunState:
     end: dict[str, Any] | None = None
     ticks_uncertain: int = 0
     undecodable: int = 0
+    bad_streams: int = 0  # descriptor entries with a sample type this release does not know
+    bad_stream_ids: set[int] = field(default_factory=set)
 
     @property
     def key(self) -> tuple[int, int]:
@@ -145,11 +147,12 @@ class Counters:
 class _Batch:
     """SAMPLES frames of one run and stream collected between flushes."""
 
-    __slots__ = ("run", "info", "seqs", "ticks", "payloads")
+    __slots__ = ("run", "info", "itemsize", "seqs", "ticks", "payloads")
 
     def __init__(self, run: RunState, info: StreamInfo) -> None:
         self.run = run
         self.info = info
+        self.itemsize = info.dtype.itemsize
         self.seqs: list[int] = []
         self.ticks: list[int] = []
         self.payloads: list[bytes] = []
@@ -189,7 +192,7 @@ class Decoder:
                 if (run is not None and seq == run.high_seq + 1 and run.damage_mark == damage
                         and run.described and seq - run.ref_seq < run.hot_span):
                     batch = batches.get((board, run_id, stream))
-                    if batch is not None:
+                    if batch is not None and not (len(body) - _SAMPLES_HEAD.size) % batch.itemsize:
                         run.high_seq = seq
                         run.received += 1
                         frame_sink(run, seq, wire.SAMPLES, "received", offset)
@@ -241,12 +244,12 @@ class Decoder:
             self.counters.unknown_kind += 1  # a newer sender's kind: skip, but it held a seq
             return
         if kind == wire.SAMPLES:
-            if self._ready(run, kind, seq):
+            if self._ready(run, kind, seq, body):
                 self._samples(run, seq, body)
             else:
                 self._hold(run, kind, seq, body, offset)
             return
-        if kind == wire.EVENTS and not self._ready(run, kind, seq):
+        if kind == wire.EVENTS and not self._ready(run, kind, seq, body):
             self._hold(run, kind, seq, body, offset)
             return
         self._typed(run, kind, seq, body, offset)
@@ -254,10 +257,16 @@ class Decoder:
             self._release_held(run)
 
     @staticmethod
-    def _ready(run: RunState, kind: int, seq: int) -> bool:
-        """SAMPLES need the descriptor and an unambiguous tick; EVENTS the tick."""
-        if kind == wire.SAMPLES and not run.described:
+    def _ready(run: RunState, kind: int, seq: int, body: bytes) -> bool:
+        """SAMPLES and EVENTS need the descriptor (for max_gap_ms) and an
+        unambiguous tick; SAMPLES also their stream's entry, unless the
+        descriptor is complete (then an unknown stream is undecodable)."""
+        if not run.described:
             return False
+        if (kind == wire.SAMPLES and len(body) > wire.HEADER_SIZE
+                and body[wire.HEADER_SIZE] not in run.streams
+                and len(run.streams) + run.bad_streams < run.n_streams):
+            return False  # a later part of a split descriptor will name it
         return run.tick_ok(seq)
 
     def _account(self, run: RunState, seq: int) -> str:
@@ -282,22 +291,29 @@ class Decoder:
     def _fill_gap(run: RunState, seq: int) -> bool:
         for i, (first, last, corrupt) in enumerate(run.gaps):
             if first <= seq <= last:
-                parts = [[first, seq - 1, corrupt], [seq + 1, last, corrupt]]
+                # The damaged segments stay with the first frames of the gap (SPEC).
+                head = min(corrupt, seq - first)
+                tail = min(corrupt - head, last - seq)
+                parts = [[first, seq - 1, head], [seq + 1, last, tail]]
                 run.gaps[i : i + 1] = [p for p in parts if p[0] <= p[1]]
                 return True
         return False
 
-    def _samples(self, run: RunState, seq: int, body: bytes) -> None:
+    def _samples(self, run: RunState, seq: int, body: bytes, forced: bool = False) -> None:
+        if len(body) <= _SAMPLES_HEAD.size:
+            self.counters.malformed += 1
+            return
         _, _, _, _, stream, tick32 = _SAMPLES_HEAD.unpack_from(body)
         info = run.streams.get(stream)
         if info is None:
             run.undecodable += 1
             return
-        if seq > run.ref_seq:  # a sample frame is as good a reference as an anchor
-            tick = wire.unwrap_tick(tick32, run.ref_tick)
+        if (len(body) - _SAMPLES_HEAD.size) % info.dtype.itemsize:
+            self.counters.malformed += 1
+            return
+        tick = wire.unwrap_tick(tick32, run.ref_tick)
+        if seq > run.ref_seq and not forced:  # a sample frame is as good a reference as an anchor
             run.ref_seq, run.ref_tick = seq, tick
-        else:
-            tick = wire.unwrap_tick(tick32, run.ref_tick)
         key = (run.board, run.run, stream)
         batch = self._batches.get(key)
         if batch is None:
@@ -306,7 +322,11 @@ class Decoder:
         batch.ticks.append(tick)
         batch.payloads.append(body[_SAMPLES_HEAD.size :])
 
-    def _typed(self, run: RunState, kind: int, seq: int, body: bytes, offset: int) -> None:
+    def _typed(self, run: RunState, kind: int, seq: int, body: bytes, offset: int,
+               forced: bool = False) -> None:
+        if kind == wire.SAMPLES:
+            self._samples(run, seq, body, forced)
+            return
         try:
             f = parse_body(kind, body[wire.HEADER_SIZE :])
         except MalformedFrame:
@@ -314,8 +334,6 @@ class Decoder:
             return
         if kind == wire.DESCRIPTOR:
             self._descriptor(run, seq, f)
-        elif kind == wire.SAMPLES:
-            self._samples(run, seq, body)
         elif kind == wire.EVENTS:
             for ev in f["events"]:
                 tick = wire.unwrap_tick(ev["tick32"], run.ref_tick)
@@ -328,7 +346,10 @@ class Decoder:
             self._anchor(run, seq, f["tick"])
             run.end = f
             self.sink.reply(run, seq, kind, f)
-        else:  # SYNC, ACK, ERROR
+        elif kind == wire.SYNC:
+            self._anchor(run, seq, f["tx_tick"])
+            self.sink.reply(run, seq, kind, f)
+        else:  # ACK, ERROR
             self.sink.reply(run, seq, kind, f)
 
     def _anchor(self, run: RunState, seq: int, tick: int) -> None:
@@ -336,6 +357,10 @@ class Decoder:
             run.ref_seq, run.ref_tick = seq, tick
 
     def _descriptor(self, run: RunState, seq: int, f: dict[str, Any]) -> None:
+        if any(len(s["name"].encode()) > wire.MAX_TEXT or len(s["unit"].encode()) > wire.MAX_TEXT
+               for s in f["streams"]):
+            self.counters.malformed += 1
+            return
         self._anchor(run, seq, f["tick"])
         first = not run.described
         run.tick_hz = f["tick_hz"]
@@ -343,6 +368,11 @@ class Decoder:
         run.max_gap_us = max(1, f["max_gap_ms"]) * 1000
         run.n_streams = f["n_streams"]
         for s in f["streams"]:
+            if s["type"] not in _DTYPES:  # a sample type this release cannot unpack
+                if s["stream"] not in run.bad_stream_ids:
+                    run.bad_stream_ids.add(s["stream"])
+                    run.bad_streams += 1
+                continue
             # scale and offset travel as float32: read them as the shortest
             # decimal that rounds to that float32 (0.001, not 0.0010000000475).
             s["scale"] = float(str(np.float32(s["scale"])))
@@ -360,7 +390,7 @@ class Decoder:
     def _release_held(self, run: RunState, final: bool = False) -> None:
         keep = []
         for item in run.held:
-            if self._ready(run, item[0], item[1]):
+            if self._ready(run, item[0], item[1], item[2]):
                 self._typed(run, item[0], item[1], item[2], item[3])
             elif final:
                 self._force(run, item)
@@ -374,7 +404,7 @@ class Decoder:
             run.undecodable += 1
             return
         run.ticks_uncertain += 1
-        self._typed(run, item[0], item[1], item[2], item[3])
+        self._typed(run, item[0], item[1], item[2], item[3], forced=True)
 
     # ---- batches and closing ---------------------------------------------------
     def _flush(self) -> None:
@@ -393,8 +423,6 @@ class Decoder:
             batch.seqs, batch.ticks, batch.payloads = [], [], []
 
     def _close_accounting(self, run: RunState) -> None:
-        if run.end is not None and run.end["frames"] - 1 > run.high_seq:
-            run.gaps.append([run.high_seq + 1, run.end["frames"] - 1, 0])
         for first, last, corrupt in run.gaps:
             for i, seq in enumerate(range(first, last + 1)):
                 self.sink.frame(run, seq, -1, "corrupt" if i < corrupt else "missing", -1)
