@@ -224,23 +224,39 @@ class Encoder:
         self.seq = seq
         self.body = bytearray(MAX_BODY + CRC_SIZE)
         self.out = bytearray(MAX_WIRE)
-        self._mv = memoryview(self.body)
 
-    def begin(self, kind):
-        """Write the header; return the offset where the kind's fields start."""
-        struct.pack_into(HEADER, self.body, 0, (VERSION << 4) | kind, self.board, self.run, self.seq)
+    def begin(self, kind, body=None):
+        """Write the header into body (default self.body); return where the fields start."""
+        if body is None:
+            body = self.body
+        struct.pack_into(HEADER, body, 0, (VERSION << 4) | kind, self.board, self.run, self.seq)
         return HEADER_SIZE
 
-    def finish(self, n):
-        """Seal body[:n] with its CRC, COBS-encode it into out; return the wire length."""
+    def finish(self, n, body=None, dst=None):
+        """Seal body[:n] with its CRC and COBS-encode it into dst (default
+        self.out), delimiter included; return the wire length. The board
+        passes its own per-stream body and a ring slot so nothing is copied."""
+        if body is None:
+            body = self.body
+        if dst is None:
+            dst = self.out
         if n < HEADER_SIZE or n > MAX_BODY:
             raise ValueError("frame body length out of range")
-        c = crc32(self._mv[:n])
-        struct.pack_into("<HH", self.body, n, c & 0xFFFF, (c >> 16) & 0xFFFF)
-        m = cobs_encode_into(self.body, n + CRC_SIZE, self.out)
-        self.out[m] = 0
+        self.crc_into(body, n)
+        m = cobs_encode_into(body, n + CRC_SIZE, dst)
+        dst[m] = 0
         self.seq += 1
         return m + 1
+
+    @staticmethod
+    def crc_into(body, n):
+        """Append CRC-32 of body[:n] at body[n:n + 4], little-endian.
+
+        The board replaces this with an allocation-free version (firmware/crc.py):
+        binascii.crc32 returns an int that needs the heap once it passes 2**30.
+        """
+        c = crc32(memoryview(body)[:n])
+        struct.pack_into("<HH", body, n, c & 0xFFFF, (c >> 16) & 0xFFFF)
 
     def frame(self, n):
         return bytes(self.out[:n])
