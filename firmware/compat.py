@@ -31,3 +31,10 @@ except ImportError:  # CPython
 
     def ticks_add(t, delta):
         return (t + delta) & (_PERIOD - 1)
+
+try:
+    ticks_ms = time.ticks_ms
+except AttributeError:  # CPython
+
+    def ticks_ms():
+        return (time.perf_counter_ns() // 1000000) & ((1 << 30) - 1)

@@ -167,7 +167,7 @@ def parse(text):
     try:
         given = json.loads(text)
     except ValueError:
-        raise ConfigError("config: not valid JSON")
+        raise ConfigError("config: not valid JSON") from None
     return validate(given)
 
 

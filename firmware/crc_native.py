@@ -7,7 +7,6 @@ crc.py otherwise (the WebAssembly port used by the tests rejects viper).
 from array import array
 
 import micropython
-
 from crc import _TH, _TL
 
 # One 32-bit table built from the two halves (a one-off allocation at import).

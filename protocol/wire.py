@@ -117,6 +117,11 @@ END_FIELDS = ("tick", "frames", "reason")
 END_STREAM_FIELDS = ("stream", "samples")
 COMMAND_FIELDS = ("opcode", "request")
 
+# ---- BLE GATT identity (our own random 128-bit UUIDs) -------------------------
+SERVICE_UUID = "c3f6d394-a77f-46d8-8777-2be58d2f9a9c"
+DATA_UUID = "76cb2b59-f8d4-4509-9517-5339bb80faf0"  # notify: board -> laptop byte stream
+COMMAND_UUID = "0913ba47-8c7f-4c02-955f-c9b54d9cef23"  # write: laptop -> board byte stream
+
 # ---- limits -------------------------------------------------------------------
 # One frame must fit one 244-byte BLE notification (ATT MTU 247). COBS adds one
 # byte for bodies under 255 bytes and the delimiter one more:

@@ -138,6 +138,62 @@ def peak_rss(path: Path) -> float:
     return int(out.strip()) / 1024.0
 
 
+REPO = Path(__file__).resolve().parents[2]
+BOARD_BENCH = """
+import gc, time, json, config
+from board import Board
+from simhw import SimHW, SinkLink
+from framer import Block
+cfg = config.validate({"board_id": 1, "streams": [
+    {"id": k, "name": "s%d" % k, "unit": "V", "source": "adc%d" % k, "rate_hz": 5000, "type": "h",
+     "scale": 0.001, "offset": 0.0} for k in range(4)],
+    "coil": {"program": [[1, 200], [0, 200], [-1, 200], [0, 200]], "repeat": 100000,
+             "max_on_ms": 1000, "max_duty": 0.5, "duty_window_ms": 2000, "link_timeout_ms": 500}})
+hw = SimHW()
+b = Board(cfg, hw, hw.next_run_id())
+b.link = SinkLink(b.ring)
+b.start(0, "")
+def spin(frames):
+    f0 = b.ring.head
+    while b.ring.head - f0 < frames:
+        hw.advance(100)
+        b.poll()
+spin(300)
+gc.collect(); gc.disable()
+a = gc.mem_alloc(); f0 = b.ring.head
+spin(2000)
+alloc = (gc.mem_alloc() - a) / (b.ring.head - f0)
+gc.enable()
+fr = b.framer
+blk = Block(9, ord("h"))
+N = 200
+t = time.ticks_us()
+for i in range(N):
+    for k in range(112):
+        fr.sample(blk, k, 0, 0)
+frame_us = time.ticks_diff(time.ticks_us(), t) / N
+s = b.sampler
+b.running = False
+t = time.ticks_us()
+for i in range(5000):
+    s.poll()
+loop_us = time.ticks_diff(time.ticks_us(), t) / 5000
+print(json.dumps({"alloc": alloc, "frame_us": frame_us, "loop_us": loop_us}))
+"""
+
+
+def board_figures() -> dict[str, float]:
+    """Board code timings under the WebAssembly MicroPython (node)."""
+    files = {"/lib/" + p.name: p.read_text() for p in (REPO / "firmware").glob("*.py")}
+    files["/lib/wire.py"] = (REPO / "protocol" / "wire.py").read_text()
+    job = json.dumps({"files": files, "code": BOARD_BENCH})
+    out = subprocess.run(["node", str(REPO / "tests" / "mpy" / "run.mjs")], input=job.encode(),
+                         capture_output=True, check=True, timeout=600).stdout
+    r = json.loads(out)
+    return {"board_alloc_bytes_per_frame": round(r["alloc"], 3),
+            "board_frame_us": round(r["frame_us"], 1), "board_loop_us": round(r["loop_us"], 2)}
+
+
 def main() -> int:
     size = int(os.environ.get("BENCH_MB", "110")) << 20
     figures: dict[str, float] = {}
@@ -158,6 +214,7 @@ def main() -> int:
         figures["decode_vs_construct"] = round(figures["decode_MBps"] / figures["construct_loop_MBps"], 1)
         figures["decode_peak_rss_MB"] = round(peak_rss(big), 1)
         figures["decode_peak_rss_small_MB"] = round(peak_rss(small), 1)
+    figures.update(board_figures())
     for k, v in figures.items():
         print(f"{k:28s} {v}")
     print(json.dumps(figures, sort_keys=True))

@@ -1,0 +1,80 @@
+"""Laptop commands: parse, validate, act, and answer every one.
+
+Each COMMAND frame gets exactly one ACK or ERROR (a PING gets a SYNC; a RESEND
+gets its frames plus an ACK, or an ERROR naming what the ring no longer holds).
+A bad command changes nothing. Commands are rare, so this module may allocate.
+"""
+
+import struct
+
+import wire
+
+# struct errors are ValueError on MicroPython, struct.error on CPython.
+_BAD_ARGS = (ValueError, IndexError) + ((struct.error,) if hasattr(struct, "error") else ())
+
+
+def handle(board, body):
+    """Act on one CRC-checked frame body from the laptop."""
+    if len(body) < wire.HEADER_SIZE + wire.COMMAND_FIXED_SIZE:
+        return
+    version, kind, target, run, _ = wire.parse_header(body)
+    if version != wire.VERSION or kind != wire.COMMAND:
+        return  # not for us (or an echo): nothing to answer
+    if target != 0xFFFF and target != board.board_id:
+        return  # addressed to another board on the same link
+    opcode, request = struct.unpack_from(wire.COMMAND_FIXED, body, wire.HEADER_SIZE)
+    args = body[wire.HEADER_SIZE + wire.COMMAND_FIXED_SIZE :]
+    fr = board.framer
+    try:
+        if opcode == wire.CMD_START:
+            duration_s = struct.unpack_from(wire.START_ARGS, args, 0)[0]
+            label, end = wire.get_text(args, 4)
+            _no_more(args, end)
+            refused = board.start(duration_s, label)
+            if refused:
+                fr.error_now(request, opcode, refused)
+            else:
+                fr.ack_now(request, opcode)
+        elif opcode == wire.CMD_STOP:
+            _no_more(args, 0)
+            board.stop(1)
+            fr.ack_now(request, opcode)
+        elif opcode == wire.CMD_SET_CONFIG:
+            key, end = wire.get_text(args, 0)
+            value, end = wire.get_text(args, end)
+            _no_more(args, end)
+            code = board.set_config(key, value)
+            if code:
+                fr.error_now(request, opcode, code)
+            else:
+                fr.ack_now(request, opcode)
+        elif opcode == wire.CMD_PING:
+            _no_more(args, 8)
+            host_ns = struct.unpack_from(wire.PING_ARGS, args, 0)[0]
+            rx_hi, rx_lo = board.rx_hi, board.rx_lo
+            c = board.clock
+            c.update()
+            fr.sync_now(request, host_ns, rx_hi, rx_lo, c.hi, c.lo)
+        elif opcode == wire.CMD_RESEND:
+            _no_more(args, 8)
+            first, last = struct.unpack_from(wire.RESEND_ARGS, args, 0)
+            if last < first:
+                raise ValueError
+            gone = board.ring.request_resend(first, last)
+            if gone:
+                fr.error_now(request, opcode, wire.ERR_NOT_HELD, gone[0], gone[1])
+            else:
+                fr.ack_now(request, opcode)
+        elif opcode == wire.CMD_STATUS:
+            _no_more(args, 0)
+            board.status()
+            fr.ack_now(request, opcode)
+        else:
+            fr.error_now(request, opcode, wire.ERR_BAD_COMMAND)
+    except _BAD_ARGS:
+        fr.error_now(request, opcode, wire.ERR_BAD_ARGUMENT)
+
+
+def _no_more(args, end):
+    if len(args) != end:
+        raise ValueError("trailing bytes")

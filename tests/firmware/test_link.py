@@ -1,0 +1,95 @@
+"""The BLE link on a stand-in `bluetooth` module (see sim_bluetooth.py: a mock,
+because the WebAssembly port has no radio)."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+from slipless.decoder import CollectSink, Decoder
+from slipless.protocol import wire
+
+HERE = Path(__file__).resolve().parent
+CONFIG = {
+    "board_id": 2, "name": "rotor-a",
+    "streams": [{"id": 0, "name": "cap_amp", "unit": "V", "source": "adc0", "rate_hz": 1000,
+                 "type": "h", "scale": 0.001, "offset": 0.0}],
+    "link": {"status_every_ms": 500, "descriptor_every_ms": 1000, "ring_frames": 64,
+             "queue_frames": 48},
+}
+
+CODE = """
+import json, config, bluetooth
+from board import Board
+from link import Link
+from simhw import SimHW
+cfg = config.validate(json.loads({cfg!r}))
+hw = SimHW()
+b = Board(cfg, hw, hw.next_run_id())
+ble = bluetooth.BLE()
+b.link = Link(ble, bluetooth, cfg['name'], b.ring, b.command_bytes)
+print(ble.adv[1].hex(), ble.adv[2].hex())
+ble.connect()
+ble.mtu({mtu})
+ble.write(bytes.fromhex({start!r})[:7])      # a command split over two writes
+ble.write(bytes.fromhex({start!r})[7:])
+def run_for(us, step=200):
+    t = 0
+    while t < us:
+        hw.advance(step)
+        b.poll()
+        t += step
+run_for(300_000)
+ble.refuse = 5                                 # the controller queue is full for a while
+run_for(300_000)
+print(''.join(n.hex() + ',' for n in ble.notes))
+print(max(len(n) for n in ble.notes), b.link.refused, b.ring.dropped)
+"""
+
+
+def run(micropython, mtu: int):
+    enc = wire.Encoder(0xFFFF, 0)
+    start = enc.frame(enc.start(1, 0, "x")).hex()
+    out = micropython(CODE.format(cfg=json.dumps(CONFIG), mtu=mtu, start=start),
+                      files={"/lib/bluetooth.py": (HERE / "sim_bluetooth.py").read_text()})
+    first, notes, stats = out.strip().split("\n")
+    adv, resp = first.split()
+    return adv, resp, [bytes.fromhex(n) for n in notes.split(",") if n], stats.split()
+
+
+def decode(notes: list[bytes]):
+    sink = CollectSink()
+    dec = Decoder(sink)
+    for n in notes:
+        dec.feed(n)
+    dec.finish()
+    return dec, sink
+
+
+def test_advertises_our_service(micropython) -> None:
+    adv, resp, _, _ = run(micropython, 247)
+    # Core spec Supplement, AD types: 0x01 flags, 0x07 complete list of 128-bit
+    # service UUIDs, 0x09 complete local name (from memory).
+    uuid_le = bytes(reversed(bytes.fromhex(wire.SERVICE_UUID.replace("-", ""))))
+    assert bytes.fromhex(adv) == b"\x02\x01\x06\x11\x07" + uuid_le
+    assert bytes.fromhex(resp) == b"\x08\x09rotor-a"
+
+
+def test_large_mtu_whole_frames_nothing_lost(micropython) -> None:
+    _, _, notes, (biggest, refused, dropped) = run(micropython, 247)
+    assert int(biggest) <= 244 and int(refused) == 5 and int(dropped) == 0
+    for n in notes:  # every notification holds whole frames only
+        assert n.endswith(b"\x00")
+    dec, sink = decode(notes)
+    (run_,) = [r for r in dec.runs.values() if r.samples]
+    assert dec.missing(run_) == 0 and dec.counters.corrupt == 0
+    assert [r[3] for r in sink.replies].count("ack") == 1
+    assert run_.samples >= 550
+
+
+def test_default_mtu_splits_frames(micropython) -> None:
+    _, _, notes, (biggest, refused, _) = run(micropython, 23)
+    assert int(biggest) == 20 and int(refused) == 5
+    dec, _ = decode(notes)
+    (run_,) = [r for r in dec.runs.values() if r.samples]
+    assert dec.missing(run_) == 0 and dec.counters.corrupt == 0
