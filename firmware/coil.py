@@ -135,7 +135,7 @@ class Program:
             return False
         changed = False
         while self.running and ticks_diff(now_ms, self.step_start) >= self.steps[self.index][1]:
-            self.step_start = ticks_add(self.step_start, self.steps[self.index][1])
+            self.step_start = ticks_add(self.step_start, self.steps[self.index][1])  # type: ignore[type-var]
             self.index += 1
             changed = True
             if self.index == len(self.steps):

@@ -20,11 +20,11 @@ except ImportError:  # CPython
     _PERIOD = 1 << 30
     _HALF = 1 << 29
 
-    def const(x):
+    def const(x):  # type: ignore[misc]  # the stubs type MicroPython's const generically
         return x
 
     def ticks_us():
-        return (time.perf_counter_ns() // 1000) & (_PERIOD - 1)
+        return (time.perf_counter_ns() // 1000) & (_PERIOD - 1)  # type: ignore[attr-defined]
 
     def ticks_diff(a, b):
         return ((a - b + _HALF) & (_PERIOD - 1)) - _HALF
@@ -37,4 +37,4 @@ try:
 except AttributeError:  # CPython
 
     def ticks_ms():
-        return (time.perf_counter_ns() // 1000000) & ((1 << 30) - 1)
+        return (time.perf_counter_ns() // 1000000) & ((1 << 30) - 1)  # type: ignore[attr-defined]

@@ -28,4 +28,4 @@ def _crc(buf: ptr8, n: int, t: ptr32):
 
 
 def crc32_into(buf, n):
-    _crc(buf, n, _T)
+    _crc(buf, n, _T)  # type: ignore[arg-type]  # viper converts the array to ptr32

@@ -46,7 +46,7 @@ class Block:
 class Framer(wire.Encoder):
     def __init__(self, board, run, ring, on_frame=None):
         super().__init__(board, run)
-        self.crc_into = crc32_into  # instance attribute: a plain function, not bound
+        self.crc_into = crc32_into  # type: ignore[method-assign]  # a plain function, not bound
         self.ring = ring
         self.on_frame = on_frame  # called with (slot buffer, length) after each frame
         self.ev_body = bytearray(wire.MAX_BODY + wire.CRC_SIZE)
@@ -106,7 +106,7 @@ class Framer(wire.Encoder):
         rest = list(streams)
         while True:
             enc = wire.Encoder(self.board, self.run)
-            part = []
+            part = []  # type: list
             while rest:
                 try:
                     enc.descriptor(0, tick_hz, fw, max_gap_ms, len(streams), part + rest[:1])

@@ -48,7 +48,7 @@ class Adc:
 
 
 class _I2cDevice:
-    _buses = {}
+    _buses = {}  # type: dict
 
     def __init__(self, spec):
         key = spec["i2c"]
@@ -98,7 +98,7 @@ class IndexRate:
     STALE_US = 5000000  # no pulse for this long: report 0 (stopped)
 
     def __init__(self, spec):
-        self.last = 0
+        self.last = time.ticks_us()
         self.period = 0
         self.pin = machine.Pin(spec["pin"], machine.Pin.IN)
         self.pin.irq(self._edge, machine.Pin.IRQ_RISING)
@@ -156,11 +156,13 @@ class BoardHW:
             mv = self._temp_adc.read_u16() * 3300 // 65535
             return 2700 - (mv - 706) * 100000 // 1721
         try:
-            import esp32
-
-            return esp32.mcu_temperature() * 100
-        except (ImportError, AttributeError):
+            import esp32  # type: ignore[import-not-found,unused-ignore]  # ESP32 ports only
+        except ImportError:
             return 0
+        mcu = getattr(esp32, "mcu_temperature", None)  # S2/S3/C3: degrees C
+        if mcu is not None:
+            return mcu() * 100
+        return (esp32.raw_temperature() - 32) * 500 // 9  # original ESP32: degrees F
 
     def free_ram(self):
         return gc.mem_free()

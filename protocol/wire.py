@@ -15,7 +15,7 @@ try:  # MicroPython folds const() at compile time; CPython just needs a no-op.
     from micropython import const
 except ImportError:  # pragma: no cover - CPython
 
-    def const(x):
+    def const(x):  # type: ignore[misc]  # the stubs type MicroPython's const generically
         return x
 
 
