@@ -51,7 +51,8 @@ class Coil:
         self.window_ms = window_ms
         self.budget_ms = int(self.max_duty * window_ms)  # ints from here on: no floats per loop
         self.state = 0
-        self.since = now_ms  # when the present state began
+        self.since = now_ms  # on-time is charged up to here
+        self.state_since = now_ms  # when the present state began (max_on_ms)
         # On-time bookkeeping over the duty window: the window in progress and
         # the one before it, so the estimate never forgets a burst at a boundary.
         self.win_start = now_ms
@@ -81,6 +82,8 @@ class Coil:
         if state and self.duty_used_ms(now_ms) >= self.budget_ms:
             self.off(now_ms)
             return TRIP_DUTY
+        if state != self.state:
+            self.state_since = now_ms
         self.state = state
         self.bridge.drive(state)
         return 0
@@ -94,7 +97,7 @@ class Coil:
         """Enforce the limits; return 0, or the trip reason after switching off."""
         if not self.state:
             return 0
-        if ticks_diff(now_ms, self.since) >= self.max_on_ms:
+        if ticks_diff(now_ms, self.state_since) >= self.max_on_ms:
             self.off(now_ms)
             return TRIP_ON_TIME
         self._account(now_ms)
