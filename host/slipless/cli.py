@@ -33,7 +33,7 @@ class _Parser(argparse.ArgumentParser):
 
 
 def build_parser() -> argparse.ArgumentParser:
-    p = _Parser(prog="slipless", description="Rotor board telemetry: decode, tables, demo.")
+    p = _Parser(prog="slipless", description="Rotor board telemetry: decode, tables, demo, flash.")
     p.add_argument("--version", action="version", version=f"slipless {__version__}")
     sub = p.add_subparsers(dest="command", required=True, parser_class=_Parser)
 
@@ -47,6 +47,13 @@ def build_parser() -> argparse.ArgumentParser:
     m.add_argument("--out", type=Path, default=Path("demo-out"), metavar="DIR")
     m.add_argument("--seconds", type=float, default=120.0, help="simulated run length")
     m.add_argument("--seed", type=int, default=1)
+
+    f = sub.add_parser("flash", help="check a config, compile and copy the firmware to a board, verify")
+    f.add_argument("--port", required=True, help="the board's serial port, e.g. /dev/ttyUSB0 or COM3")
+    f.add_argument("--board", metavar="PROFILE",
+                   help="board profile (default: the config's profile, else esp32-devkitc)")
+    f.add_argument("--config", type=Path, metavar="FILE", help="config JSON (default: built-in defaults)")
+    f.add_argument("--dry-run", action="store_true", help="print what would be copied; touch nothing")
     return p
 
 
@@ -60,6 +67,10 @@ def main(argv: Sequence[str] | None = None) -> int:
             from slipless.demo import run_demo
 
             return run_demo(args, console)
+        if args.command == "flash":
+            from slipless.flash import run_flash
+
+            return run_flash(args, console)
     except SliplessError as exc:
         print(f"slipless: error: {exc}", file=sys.stderr)
         return EXIT_INPUT
