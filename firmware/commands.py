@@ -30,11 +30,7 @@ def handle(board, body):
             duration_s = struct.unpack_from(wire.START_ARGS, args, 0)[0]
             label, end = wire.get_text(args, 4)
             _no_more(args, end)
-            refused = board.start(duration_s, label)
-            if refused:
-                fr.error_now(request, opcode, refused)
-            else:
-                fr.ack_now(request, opcode)
+            _answer(fr, request, opcode, board.start(duration_s, label))
         elif opcode == wire.CMD_STOP:
             _no_more(args, 0)
             board.stop(1)
@@ -43,11 +39,7 @@ def handle(board, body):
             key, end = wire.get_text(args, 0)
             value, end = wire.get_text(args, end)
             _no_more(args, end)
-            code = board.set_config(key, value)
-            if code:
-                fr.error_now(request, opcode, code)
-            else:
-                fr.ack_now(request, opcode)
+            _answer(fr, request, opcode, board.set_config(key, value))
         elif opcode == wire.CMD_PING:
             _no_more(args, 8)
             host_ns = struct.unpack_from(wire.PING_ARGS, args, 0)[0]
@@ -73,6 +65,14 @@ def handle(board, body):
             fr.error_now(request, opcode, wire.ERR_BAD_COMMAND)
     except _BAD_ARGS:
         fr.error_now(request, opcode, wire.ERR_BAD_ARGUMENT)
+
+
+def _answer(fr, request, opcode, code):
+    """ACK for 0, else an ERROR carrying the code."""
+    if code:
+        fr.error_now(request, opcode, code)
+    else:
+        fr.ack_now(request, opcode)
 
 
 def _no_more(args, end):

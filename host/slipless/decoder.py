@@ -462,3 +462,13 @@ class CollectSink(NullSink):
 
     def frame(self, run: RunState, seq: int, kind: int, fate: str, offset: int) -> None:
         self.frames.append((run.board, run.run, seq, fate))
+
+
+def collect(chunks: Any) -> tuple[Decoder, CollectSink]:
+    """Decode an iterable of byte chunks into a CollectSink; for tests and notebooks."""
+    sink = CollectSink()
+    dec = Decoder(sink)
+    for chunk in chunks:
+        dec.feed(chunk)
+    dec.finish()
+    return dec, sink

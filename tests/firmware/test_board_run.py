@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import json
 
-from slipless.decoder import CollectSink, Decoder
+from slipless.decoder import CollectSink, Decoder, collect
 from slipless.protocol import wire
 
 CONFIG = {
@@ -50,11 +50,7 @@ def setup(cfg=CONFIG, start_us=0) -> str:
 
 
 def decode(hexdata: str) -> tuple[Decoder, CollectSink]:
-    sink = CollectSink()
-    dec = Decoder(sink)
-    dec.feed(bytes.fromhex(hexdata))
-    dec.finish()
-    return dec, sink
+    return collect([bytes.fromhex(hexdata)])
 
 
 def laptop(opcode_builder) -> str:

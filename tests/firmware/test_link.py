@@ -6,7 +6,7 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
-from slipless.decoder import CollectSink, Decoder
+from slipless.decoder import collect
 from slipless.protocol import wire
 
 HERE = Path(__file__).resolve().parent
@@ -58,12 +58,7 @@ def run(micropython, mtu: int):
 
 
 def decode(notes: list[bytes]):
-    sink = CollectSink()
-    dec = Decoder(sink)
-    for n in notes:
-        dec.feed(n)
-    dec.finish()
-    return dec, sink
+    return collect(notes)
 
 
 def test_advertises_our_service(micropython) -> None:

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import json
 
-from slipless.decoder import CollectSink, Decoder
+from slipless.decoder import collect
 from slipless.protocol import wire
 
 CONFIG = {
@@ -50,10 +50,7 @@ with open({path!r}, 'rb') as f:
     data, skipped, head = board_runtime(code).split()
     raw = bytes.fromhex(data)
     assert 0 < len(raw) <= 4096 and int(skipped) > 0  # the cap stopped it
-    sink = CollectSink()
-    dec = Decoder(sink)
-    dec.feed(raw)
-    dec.finish()
+    dec, sink = collect([raw])
     (run,) = dec.runs.values()
     # every frame that reached the file decodes; none is missing before the cut
     assert run.received > 10 and dec.missing(run) == 0 and dec.counters.corrupt == 0

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from slipless.decoder import CollectSink, Decoder
+from slipless.decoder import CollectSink, Decoder, collect
 from slipless.protocol import wire
 
 H = ord("h")
@@ -16,11 +16,7 @@ def raw_frame(enc: wire.Encoder, kind: int, payload: bytes) -> bytes:
 
 
 def run(frames: list[bytes]) -> tuple[Decoder, CollectSink]:
-    sink = CollectSink()
-    dec = Decoder(sink)
-    dec.feed(b"".join(frames))
-    dec.finish()
-    return dec, sink
+    return collect([b"".join(frames)])
 
 
 def desc(enc: wire.Encoder, streams, n=None) -> bytes:

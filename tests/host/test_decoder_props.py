@@ -7,7 +7,7 @@ import random
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from slipless.decoder import CollectSink, Decoder
+from slipless.decoder import collect
 from slipless.sim.board import SimConfig, simulate
 from slipless.sim.channel import ChannelConfig, ChannelLog, transmit
 
@@ -16,11 +16,7 @@ STREAM = b"".join(transmit((f for _, f in simulate(SimConfig(seconds=6, seed=3))
 
 
 def decode(chunks):
-    sink = CollectSink()
-    dec = Decoder(sink)
-    for c in chunks:
-        dec.feed(c)
-    dec.finish()
+    dec, sink = collect(chunks)
     return sink, dec
 
 

@@ -25,29 +25,13 @@
 // where a board skips main.py anyway).
 //
 // usage: node repl_bridge.mjs [heapsize-bytes]
-import { readFileSync, writeSync } from "node:fs";
+import { readFileSync } from "node:fs";
 import { constants } from "node:os";
-import { dirname, join } from "node:path";
-import { fileURLToPath } from "node:url";
+import { portModule, writeAll } from "./port.mjs";
 
-const repoRoot = join(dirname(fileURLToPath(import.meta.url)), "..", "..");
-const portModule = join(
-  repoRoot, "node_modules", "@micropython", "micropython-webassembly-pyscript", "micropython.mjs",
-);
 
 const CTRL_A = 0x01, CTRL_B = 0x02, CTRL_C = 0x03, CTRL_D = 0x04, CTRL_E = 0x05;
 
-// Non-blocking ptys can refuse a write for a moment; retry rather than drop bytes.
-function writeAll(fd, bytes) {
-  let off = 0;
-  while (off < bytes.length) {
-    try {
-      off += writeSync(fd, bytes, off, bytes.length - off);
-    } catch (err) {
-      if (err.code !== "EAGAIN") throw err;
-    }
-  }
-}
 
 // The port emits one byte per call; collect and send in blocks.
 let outBuf = [];

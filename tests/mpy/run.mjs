@@ -6,27 +6,11 @@
 // exit:   0 on success (including sys.exit() / sys.exit(0)); 1 on any other
 //         uncaught Python exception (traceback on stderr); 2 if the runner
 //         itself fails.
-import { readFileSync, writeSync } from "node:fs";
-import { dirname, join } from "node:path";
-import { fileURLToPath } from "node:url";
+import { readFileSync } from "node:fs";
+import { dirname } from "node:path";
+import { portModule, writeAll } from "./port.mjs";
 
-const repoRoot = join(dirname(fileURLToPath(import.meta.url)), "..", "..");
-const portModule = join(
-  repoRoot, "node_modules", "@micropython", "micropython-webassembly-pyscript", "micropython.mjs",
-);
 
-// Blocking writes: the process exits right after, and an async stream write
-// could be lost. Retry on EAGAIN in case the fd is a non-blocking pipe.
-function writeAll(fd, bytes) {
-  let off = 0;
-  while (off < bytes.length) {
-    try {
-      off += writeSync(fd, bytes, off, bytes.length - off);
-    } catch (err) {
-      if (err.code !== "EAGAIN") throw err;
-    }
-  }
-}
 
 // The port hands output over one byte at a time; collect and flush in blocks.
 function byteSink(fd) {

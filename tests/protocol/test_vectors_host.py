@@ -9,7 +9,7 @@ from pathlib import Path
 
 import pytest
 
-from slipless.decoder import CollectSink, Decoder
+from slipless.decoder import CollectSink, Decoder, collect
 
 VECTORS = Path(__file__).resolve().parents[2] / "protocol" / "vectors"
 CASES = sorted(p.stem for p in VECTORS.glob("*.json"))
@@ -28,12 +28,7 @@ def chunkings(data: bytes):
 
 
 def decode(chunks) -> tuple[Decoder, CollectSink]:
-    sink = CollectSink()
-    dec = Decoder(sink)
-    for c in chunks:
-        dec.feed(c)
-    dec.finish()
-    return dec, sink
+    return collect(chunks)
 
 
 @pytest.mark.parametrize("stem", CASES)
