@@ -20,7 +20,7 @@ from rich.table import Table
 from slipless import __version__
 from slipless.decoder import Decoder
 from slipless.errors import InputError, ProtocolVersionError, SliplessError
-from slipless.inputs import PROGRESS_OVER, check_input, read_chunks
+from slipless.inputs import PROGRESS_OVER, classify, pieces
 from slipless.protocol import wire
 from slipless.tables import FORMATS, TableSink
 
@@ -40,6 +40,8 @@ def build_parser() -> argparse.ArgumentParser:
     d = sub.add_parser("decode", help="decode captures or raw byte streams into tidy tables")
     d.add_argument("inputs", nargs="+", type=Path, metavar="INPUT")
     d.add_argument("--out", type=Path, required=True, metavar="DIR", help="folder for the tables")
+    d.add_argument("--mirror", type=Path, action="append", default=[], metavar="FILE",
+                   help="the board's file mirror, merged after the inputs (repeatable)")
     d.add_argument("--format", choices=FORMATS, default="csv", help="table format (default csv)")
     d.add_argument("--quiet", action="store_true", help="no progress bar or summary")
 
@@ -80,22 +82,33 @@ def main(argv: Sequence[str] | None = None) -> int:
     return 1  # pragma: no cover - argparse enforces a command
 
 
-def decode_files(inputs: Sequence[Path], out: Path, fmt: str, console: Console | None) -> Decoder:
-    """Decode every input into tables in `out`; return the decoder for its counts."""
-    sizes = [check_input(p) for p in inputs]  # fail before writing anything
-    sink = TableSink(out, fmt)
+def decode_files(inputs: Sequence[Path], out: Path, fmt: str, console: Console | None,
+                 mirrors: Sequence[Path] = ()) -> Decoder:
+    """Decode every input (then every mirror file) into tables in `out`.
+
+    Inputs are merged by board, run and sequence number: the first copy of a
+    frame wins, later copies are duplicates, so the order is radio first,
+    then the mirror filling what the radio lost. Returns the decoder for its
+    counts.
+    """
+    sources = [classify(p) for p in inputs] + [classify(p, mirror=True) for p in mirrors]
+    sink = TableSink(out, fmt)  # after every input was checked: fail before writing anything
     dec = Decoder(sink)
-    show = console is not None and sum(sizes) > PROGRESS_OVER
+    show = console is not None and sum(s.size for s in sources) > PROGRESS_OVER
     with Progress("[progress.description]{task.description}", BarColumn(), DownloadColumn(),
                   TimeRemainingColumn(), console=console, disable=not show) as bar:
-        for path, size in zip(inputs, sizes):
-            task = bar.add_task(path.name, total=size)
+        for src in sources:
+            task = bar.add_task(src.path.name, total=src.size)
             dec.new_input()
-            for chunk in read_chunks(path, functools.partial(_advance, bar, task)):
-                dec.feed(chunk)
+            for data, where in pieces(src, functools.partial(_advance, bar, task)):
+                if data is None:
+                    dec.reset_source(where.source)
+                else:
+                    dec.feed(data, where)
     dec.finish()
     sink.close(list(dec.runs.values()), dec.missing, dec.corrupt_guess)
-    _check_outcome(dec, inputs)
+    _check_outcome(dec, [s.path for s in sources])
+    dec.notes += [s.note for s in sources if s.note]
     return dec
 
 
@@ -115,7 +128,8 @@ def _check_outcome(dec: Decoder, inputs: Sequence[Path]) -> None:
 
 
 def cmd_decode(args: argparse.Namespace, console: Console) -> int:
-    dec = decode_files(args.inputs, args.out, args.format, None if args.quiet else console)
+    dec = decode_files(args.inputs, args.out, args.format, None if args.quiet else console,
+                       args.mirror)
     if not args.quiet:
         print_summary(dec, console)
         console.print(f"tables written to {args.out}/")
@@ -153,7 +167,7 @@ def print_summary(dec: Decoder, console: Console) -> None:
         if r.ticks_uncertain:
             notes.append(f"board {r.board} run {r.run}: {r.ticks_uncertain} frames have "
                          "uncertain board time (long gap without a full tick)")
-    for n in notes:
+    for n in notes + dec.notes:
         console.print(f"note: {n}")
 
 

@@ -29,6 +29,30 @@ _DTYPES = {0x62: "<i1", 0x42: "<u1", 0x68: "<i2", 0x48: "<u2", 0x69: "<i4", 0x49
            0x66: "<f4"}
 
 
+ORIGINS = ("radio", "resend", "mirror", "stream")
+
+
+@dataclass(frozen=True)
+class Arrival:
+    """Where and when a chunk of bytes reached the laptop.
+
+    source tells apart byte streams that must never be glued together (one per
+    board connection in a capture); mono_ns and wall_ns are the laptop's clocks
+    at reception (-1 when unknown, as in a raw stream or a mirror file); origin
+    is how the bytes came: "radio" (live link), "mirror" (the board's file),
+    "stream" (any other byte stream). A radio frame that fills an earlier gap
+    is reported with origin "resend".
+    """
+
+    source: int = 0
+    mono_ns: int = -1
+    wall_ns: int = -1
+    origin: str = "stream"
+
+
+STREAM = Arrival()
+
+
 @dataclass
 class StreamInfo:
     stream: int
@@ -63,7 +87,7 @@ class RunState:
     described: bool = False
     ref_seq: int = -1  # latest frame whose 64-bit tick is known
     ref_tick: int = 0
-    held: list[tuple[int, int, bytes, int]] = field(default_factory=list)  # kind, seq, body, offset
+    held: list[tuple[int, int, bytes, int, Arrival]] = field(default_factory=list)
     first_seq: int = -1
     high_seq: int = -1
     gaps: list[list[int]] = field(default_factory=list)  # [first, last, n_corrupt_guess]
@@ -101,7 +125,9 @@ class Sink(Protocol):
     def event(self, run: RunState, seq: int, tick: int, code: int, value: int) -> None: ...
     def status(self, run: RunState, seq: int, fields: dict[str, Any]) -> None: ...
     def reply(self, run: RunState, seq: int, kind: int, fields: dict[str, Any]) -> None: ...
-    def frame(self, run: RunState, seq: int, kind: int, fate: str, offset: int) -> None: ...
+    def frame(self, run: RunState, seq: int, kind: int, fate: str, offset: int, origin: str,
+              arrival: Arrival) -> None: ...
+    def timing(self, run: RunState, seq: int, kind: int, tick: int, arrival: Arrival) -> None: ...
 
 
 class NullSink:
@@ -123,7 +149,11 @@ class NullSink:
     def reply(self, run: RunState, seq: int, kind: int, fields: dict[str, Any]) -> None:
         pass
 
-    def frame(self, run: RunState, seq: int, kind: int, fate: str, offset: int) -> None:
+    def frame(self, run: RunState, seq: int, kind: int, fate: str, offset: int, origin: str,
+              arrival: Arrival) -> None:
+        pass
+
+    def timing(self, run: RunState, seq: int, kind: int, tick: int, arrival: Arrival) -> None:
         pass
 
 
@@ -162,27 +192,47 @@ class Decoder:
     def __init__(self, sink: Sink | None = None) -> None:
         self.sink: Sink = sink if sink is not None else NullSink()
         self.deframer = FastDeframer()
+        self._deframers: dict[int, FastDeframer] = {0: self.deframer}
+        self.arrival = STREAM
         self.counters = Counters()
         self.runs: dict[tuple[int, int], RunState] = {}
         self._batches: dict[tuple[int, int, int], _Batch] = {}
         self._done: list[FastDeframer] = []  # deframers of inputs already read
         self._damage_now = 0  # damaged segments seen before the frame being handled
+        self.notes: list[str] = []  # what the readers of the inputs had to skip
 
     def new_input(self) -> None:
         """The next bytes come from another file or link: never glue it to the last."""
-        self.deframer.close()
-        self._done.append(self.deframer)
+        for d in self._deframers.values():
+            d.close()
+            self._done.append(d)
         self.deframer = FastDeframer()
+        self._deframers = {0: self.deframer}
 
     # ---- input ------------------------------------------------------------
-    def feed(self, data: bytes) -> None:
+    def reset_source(self, source: int) -> None:
+        """A link restarted: bytes before and after must not be glued together."""
+        d = self._deframers.pop(source, None)
+        if d is not None:
+            d.close()
+            self._done.append(d)
+
+    def feed(self, data: bytes, arrival: Arrival = STREAM) -> None:
         self.counters.bytes += len(data)
-        base = sum(d.damaged for d in self._done)
+        deframer = self._deframers.get(arrival.source)
+        if deframer is None:
+            deframer = self._deframers[arrival.source] = FastDeframer()
+        self.deframer = deframer
+        self.arrival = arrival
+        base = sum(d.damaged for d in self._done) + sum(
+            d.damaged for d in self._deframers.values() if d is not deframer)
         runs = self.runs
         unpack = _SAMPLES_HEAD.unpack_from
         frame_sink = self.sink.frame
+        timed = arrival.mono_ns >= 0
+        origin = arrival.origin
         batches = self._batches
-        for body, offset, damaged in self.deframer.feed(data):
+        for body, offset, damaged in deframer.feed(data):
             damage = base + damaged
             # Hot path: the next in-order SAMPLES frame of a described run, no
             # damage since the last frame. Everything else takes _frame().
@@ -195,10 +245,12 @@ class Decoder:
                     if batch is not None and not (len(body) - _SAMPLES_HEAD.size) % batch.itemsize:
                         run.high_seq = seq
                         run.received += 1
-                        frame_sink(run, seq, wire.SAMPLES, "received", offset)
+                        frame_sink(run, seq, wire.SAMPLES, "received", offset, origin, arrival)
                         d = (tick32 - run.ref_tick) & 0xFFFFFFFF
                         tick = run.ref_tick + (d - 0x100000000 if d >= 0x80000000 else d)
                         run.ref_seq, run.ref_tick = seq, tick
+                        if timed:
+                            self._time_samples(run, seq, tick, len(body), batch.info)
                         batch.seqs.append(seq)
                         batch.ticks.append(tick)
                         batch.payloads.append(body[_SAMPLES_HEAD.size :])
@@ -207,15 +259,24 @@ class Decoder:
             self._frame(body, offset)
         self._flush()
 
+    def _time_samples(self, run: RunState, seq: int, tick: int, size: int,
+                      info: StreamInfo) -> None:
+        """The last sample's tick: the one nearest the moment the board sent the frame."""
+        n = (size - _SAMPLES_HEAD.size) // info.dtype.itemsize
+        self.sink.timing(run, seq, wire.SAMPLES, tick + (n - 1) * info.period_us, self.arrival)
+
     def finish(self) -> None:
-        self.deframer.close()
+        for d in self._deframers.values():
+            d.close()
+            self._done.append(d)
+        self._deframers = {}
         for run in self.runs.values():
             self._release_held(run, final=True)
         self._flush()
         for run in self.runs.values():
             self._close_accounting(run)
         c = self.counters
-        for d in self._done + [self.deframer]:
+        for d in self._done:
             c.frames += d.frames
             c.corrupt += d.corrupt
             c.corrupt_bytes += d.corrupt_bytes
@@ -236,8 +297,11 @@ class Decoder:
         run = self.runs.get((board, run_id))
         if run is None:
             run = self.runs[(board, run_id)] = RunState(board, run_id)
-        fate = self._account(run, seq)
-        self.sink.frame(run, seq, kind, fate, offset)
+        fate, late = self._account(run, seq)
+        origin = self.arrival.origin
+        if late and origin == "radio":
+            origin = "resend"
+        self.sink.frame(run, seq, kind, fate, offset, origin, self.arrival)
         if fate == "duplicate":
             return
         if kind not in wire.KIND_NAMES:
@@ -269,7 +333,8 @@ class Decoder:
             return False  # a later part of a split descriptor will name it
         return run.tick_ok(seq)
 
-    def _account(self, run: RunState, seq: int) -> str:
+    def _account(self, run: RunState, seq: int) -> tuple[str, bool]:
+        """Sequence bookkeeping: (fate, whether the frame filled an earlier gap)."""
         damage = self._damage_now
         if run.high_seq < 0:
             run.first_seq = run.high_seq = seq
@@ -282,10 +347,14 @@ class Decoder:
         elif not self._fill_gap(run, seq):
             run.duplicates += 1
             run.damage_mark = damage
-            return "duplicate"
+            return "duplicate", False
+        else:
+            run.damage_mark = damage
+            run.received += 1
+            return "received", True
         run.damage_mark = damage
         run.received += 1
-        return "received"
+        return "received", False
 
     @staticmethod
     def _fill_gap(run: RunState, seq: int) -> bool:
@@ -314,6 +383,8 @@ class Decoder:
         tick = wire.unwrap_tick(tick32, run.ref_tick)
         if seq > run.ref_seq and not forced:  # a sample frame is as good a reference as an anchor
             run.ref_seq, run.ref_tick = seq, tick
+        if self.arrival.mono_ns >= 0 and not forced:
+            self._time_samples(run, seq, tick, len(body), info)
         key = (run.board, run.run, stream)
         batch = self._batches.get(key)
         if batch is None:
@@ -340,28 +411,30 @@ class Decoder:
                 run.events += 1
                 self.sink.event(run, seq, tick, ev["code"], ev["value"])
         elif kind == wire.STATUS:
-            self._anchor(run, seq, f["tick"])
+            self._anchor(run, seq, f["tick"], kind)
             self.sink.status(run, seq, f)
         elif kind == wire.END:
-            self._anchor(run, seq, f["tick"])
+            self._anchor(run, seq, f["tick"], kind)
             run.end = f
             self.sink.reply(run, seq, kind, f)
         elif kind == wire.SYNC:
-            self._anchor(run, seq, f["tx_tick"])
+            self._anchor(run, seq, f["tx_tick"], kind)
             self.sink.reply(run, seq, kind, f)
         else:  # ACK, ERROR
             self.sink.reply(run, seq, kind, f)
 
-    def _anchor(self, run: RunState, seq: int, tick: int) -> None:
+    def _anchor(self, run: RunState, seq: int, tick: int, kind: int) -> None:
         if seq > run.ref_seq:
             run.ref_seq, run.ref_tick = seq, tick
+        if self.arrival.mono_ns >= 0:
+            self.sink.timing(run, seq, kind, tick, self.arrival)
 
     def _descriptor(self, run: RunState, seq: int, f: dict[str, Any]) -> None:
         if any(len(s["name"].encode()) > wire.MAX_TEXT or len(s["unit"].encode()) > wire.MAX_TEXT
                for s in f["streams"]):
             self.counters.malformed += 1
             return
-        self._anchor(run, seq, f["tick"])
+        self._anchor(run, seq, f["tick"], wire.DESCRIPTOR)
         first = not run.described
         run.tick_hz = f["tick_hz"]
         run.fw = f"{f['fw_major']}.{f['fw_minor']}.{f['fw_patch']}"
@@ -383,7 +456,7 @@ class Decoder:
             self.sink.descriptor(run)
 
     def _hold(self, run: RunState, kind: int, seq: int, body: bytes, offset: int) -> None:
-        run.held.append((kind, seq, body, offset))
+        run.held.append((kind, seq, body, offset, self.arrival))
         if len(run.held) > MAX_HELD:
             self._force(run, run.held.pop(0))
 
@@ -391,20 +464,30 @@ class Decoder:
         keep = []
         for item in run.held:
             if self._ready(run, item[0], item[1], item[2]):
-                self._typed(run, item[0], item[1], item[2], item[3])
+                self._typed_as(run, item)
             elif final:
                 self._force(run, item)
             else:
                 keep.append(item)
         run.held = keep
 
-    def _force(self, run: RunState, item: tuple[int, int, bytes, int]) -> None:
+    def _typed_as(self, run: RunState, item: tuple[int, int, bytes, int, Arrival],
+                  forced: bool = False) -> None:
+        """Decode a held frame as it arrived (its own arrival time and source)."""
+        now = self.arrival
+        self.arrival = item[4]
+        try:
+            self._typed(run, item[0], item[1], item[2], item[3], forced)
+        finally:
+            self.arrival = now
+
+    def _force(self, run: RunState, item: tuple[int, int, bytes, int, Arrival]) -> None:
         """Decode a frame whose tick cannot be proven unambiguous; count it."""
         if run.ref_seq < 0 or (item[0] == wire.SAMPLES and not run.described):
             run.undecodable += 1
             return
         run.ticks_uncertain += 1
-        self._typed(run, item[0], item[1], item[2], item[3], forced=True)
+        self._typed_as(run, item, forced=True)
 
     # ---- batches and closing ---------------------------------------------------
     def _flush(self) -> None:
@@ -425,7 +508,8 @@ class Decoder:
     def _close_accounting(self, run: RunState) -> None:
         for first, last, corrupt in run.gaps:
             for i, seq in enumerate(range(first, last + 1)):
-                self.sink.frame(run, seq, -1, "corrupt" if i < corrupt else "missing", -1)
+                self.sink.frame(run, seq, -1, "corrupt" if i < corrupt else "missing", -1, "",
+                                STREAM)
 
     # ---- summary -------------------------------------------------------------
     def missing(self, run: RunState) -> int:
@@ -444,6 +528,8 @@ class CollectSink(NullSink):
         self.status_rows: list[tuple[Any, ...]] = []
         self.replies: list[tuple[Any, ...]] = []
         self.frames: list[tuple[Any, ...]] = []
+        self.origins: list[tuple[Any, ...]] = []
+        self.timings: list[tuple[Any, ...]] = []
 
     def samples(self, run: RunState, info: StreamInfo, seq: np.ndarray, tick: np.ndarray,
                 raw: np.ndarray) -> None:
@@ -460,8 +546,14 @@ class CollectSink(NullSink):
     def reply(self, run: RunState, seq: int, kind: int, fields: dict[str, Any]) -> None:
         self.replies.append((run.board, run.run, seq, wire.KIND_NAMES[kind]))
 
-    def frame(self, run: RunState, seq: int, kind: int, fate: str, offset: int) -> None:
+    def frame(self, run: RunState, seq: int, kind: int, fate: str, offset: int, origin: str,
+              arrival: Arrival) -> None:
         self.frames.append((run.board, run.run, seq, fate))
+        if origin:
+            self.origins.append((run.board, run.run, seq, origin))
+
+    def timing(self, run: RunState, seq: int, kind: int, tick: int, arrival: Arrival) -> None:
+        self.timings.append((run.board, run.run, seq, kind, tick, arrival.mono_ns, arrival.wall_ns))
 
 
 def collect(chunks: Any) -> tuple[Decoder, CollectSink]:

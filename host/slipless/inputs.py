@@ -1,14 +1,35 @@
-"""Opening what the user names on the command line, with clear errors."""
+"""Opening what the user names on the command line, with clear errors, and
+turning each kind of input into (bytes, Arrival) pieces for the decoder.
+
+Kinds: our capture files (recognised by their magic), btsnoop HCI logs (by
+theirs), the board's file mirror (named with --mirror) and raw byte streams
+(anything else: a serial log, a concatenation of frames).
+"""
 
 from __future__ import annotations
 
+import json
 from collections.abc import Callable, Iterator
+from dataclasses import dataclass
 from pathlib import Path
 
+from slipless import capture
+from slipless.decoder import Arrival
 from slipless.errors import InputError
 
 CHUNK = 1 << 20
 PROGRESS_OVER = 4 << 20  # show a progress bar for inputs larger than this
+BTSNOOP_MAGIC = b"btsnoop\x00"
+TX_SOURCE_BASE = 1 << 16  # commands the laptop wrote get their own byte streams
+
+
+@dataclass
+class Source:
+    path: Path
+    kind: str  # "capture", "btsnoop", "mirror", "stream"
+    size: int
+    stats: capture.ReadStats | None = None  # capture files: damage and cut found while reading
+    note: str = ""  # what the reader had to skip, for the summary
 
 
 def check_input(path: Path) -> int:
@@ -23,6 +44,22 @@ def check_input(path: Path) -> int:
     return size
 
 
+def classify(path: Path, mirror: bool = False) -> Source:
+    size = check_input(path)
+    try:
+        with path.open("rb") as f:
+            head = f.read(16)
+    except OSError as exc:
+        raise InputError(f"{path}: cannot read ({exc.strerror})") from exc
+    if capture.is_capture(head):
+        kind = "capture"
+    elif head.startswith(BTSNOOP_MAGIC):
+        kind = "btsnoop"
+    else:
+        kind = "mirror" if mirror else "stream"
+    return Source(path, kind, size)
+
+
 def read_chunks(path: Path, on_progress: Callable[[int], None] | None = None) -> Iterator[bytes]:
     try:
         with path.open("rb") as f:
@@ -32,3 +69,56 @@ def read_chunks(path: Path, on_progress: Callable[[int], None] | None = None) ->
                 yield chunk
     except OSError as exc:
         raise InputError(f"{path}: cannot read ({exc.strerror})") from exc
+
+
+Piece = tuple[bytes | None, Arrival]  # data, or None: the link of arrival.source restarted
+
+
+def pieces(src: Source, on_progress: Callable[[int], None] | None = None) -> Iterator[Piece]:
+    """The input as decoder feed pieces; (None, arrival) marks a fresh link."""
+    if src.kind in ("stream", "mirror"):
+        arrival = Arrival(origin=src.kind)
+        for chunk in read_chunks(src.path, on_progress):
+            yield chunk, arrival
+    elif src.kind == "capture":
+        yield from _capture_pieces(src, on_progress)
+    elif src.kind == "btsnoop":
+        from slipless.btsnoop import btsnoop_pieces
+
+        yield from btsnoop_pieces(src.path, on_progress)
+    else:  # pragma: no cover - classify() makes only the kinds above
+        raise InputError(f"{src.path}: unknown input kind {src.kind}")
+
+
+def _capture_pieces(src: Source, on_progress: Callable[[int], None] | None) -> Iterator[Piece]:
+    try:
+        f, reader = capture.open_capture(src.path)
+    except capture.CaptureError as exc:
+        raise InputError(f"{src.path}: {exc}") from exc
+    except OSError as exc:
+        raise InputError(f"{src.path}: cannot read ({exc.strerror})") from exc
+    with f:
+        last = 0
+        for rec in reader:
+            if on_progress is not None:
+                on_progress(rec.offset - last)
+                last = rec.offset
+            if rec.type == capture.RX:
+                yield rec.payload, Arrival(rec.source, rec.mono_ns, rec.wall_ns, "radio")
+            elif rec.type == capture.TX:
+                yield rec.payload, Arrival(TX_SOURCE_BASE + rec.source, rec.mono_ns, rec.wall_ns,
+                                           "radio")
+            elif rec.type == capture.EVENT:
+                try:
+                    event = json.loads(rec.payload).get("event")
+                except ValueError:
+                    continue
+                if event in ("connected", "disconnected"):
+                    yield None, Arrival(rec.source)
+        if on_progress is not None:
+            on_progress(src.size - last)
+    src.stats = reader.stats
+    st = reader.stats
+    if st.damaged_bytes or st.truncated_bytes:
+        src.note = (f"{src.path.name}: {st.damaged_bytes} damaged bytes in {st.damaged_stretches} "
+                    f"stretch(es) skipped, {st.truncated_bytes} bytes of an unfinished last record")

@@ -15,7 +15,7 @@ from typing import Any
 
 import numpy as np
 
-from slipless.decoder import RunState, StreamInfo
+from slipless.decoder import Arrival, RunState, StreamInfo
 from slipless.errors import InputError
 from slipless.protocol import wire
 
@@ -27,7 +27,9 @@ SCHEMAS: dict[str, tuple[str, ...]] = {
     "events": ("board", "run", "seq", "tick_us", "board_time_s", "event", "code", "value"),
     "status": ("board", "run", "seq", "tick_us", "board_time_s", "battery_mV", "temp_C",
                "free_ram_B", "queue_high", "dropped_frames", "late_samples", "jitter_us"),
-    "frames": ("board", "run", "seq", "kind", "fate", "offset_B"),
+    "frames": ("board", "run", "seq", "kind", "fate", "origin", "source", "offset_B",
+               "rx_wall_ns"),
+    "timing": ("board", "run", "seq", "kind", "tick_us", "source", "rx_mono_ns", "rx_wall_ns"),
     "replies": ("board", "run", "seq", "kind", "fields"),
     "streams": ("board", "run", "stream", "name", "unit", "type", "state", "period_us", "scale",
                 "offset"),
@@ -40,7 +42,7 @@ SCHEMAS: dict[str, tuple[str, ...]] = {
 # Column types for formats that store them (Parquet). Raw samples of every
 # sample type fit a float64 exactly (u32/i32 < 2**53), so one column holds all.
 _FLOAT = {"board_time_s", "raw", "value", "temp_C", "scale", "offset"}
-_STR = {"name", "unit", "event", "kind", "fate", "fields", "type", "fw", "end_reason"}
+_STR = {"name", "unit", "event", "kind", "fate", "fields", "type", "fw", "end_reason", "origin"}
 
 
 def _arrow_type(pa: Any, column: str) -> Any:
@@ -134,9 +136,15 @@ class TableSink:
         self._t["replies"].write([[run.board], [run.run], [seq], [wire.KIND_NAMES[kind]],
                                   [json.dumps(f, sort_keys=True)]])
 
-    def frame(self, run: RunState, seq: int, kind: int, fate: str, offset: int) -> None:
+    def frame(self, run: RunState, seq: int, kind: int, fate: str, offset: int, origin: str,
+              arrival: Arrival) -> None:
         name = wire.KIND_NAMES.get(kind, "" if kind < 0 else f"kind{kind}")
-        self._t["frames"].write([[run.board], [run.run], [seq], [name], [fate], [offset]])
+        self._t["frames"].write([[run.board], [run.run], [seq], [name], [fate], [origin],
+                                 [arrival.source], [offset], [arrival.wall_ns]])
+
+    def timing(self, run: RunState, seq: int, kind: int, tick: int, arrival: Arrival) -> None:
+        self._t["timing"].write([[run.board], [run.run], [seq], [wire.KIND_NAMES[kind]], [tick],
+                                 [arrival.source], [arrival.mono_ns], [arrival.wall_ns]])
 
     def close(self, runs: Sequence[RunState], missing: Any, corrupt: Any) -> None:
         rows = []
