@@ -52,7 +52,10 @@ def handle(board, body):
             first, last = struct.unpack_from(wire.RESEND_ARGS, args, 0)
             if last < first:
                 raise ValueError
-            gone = board.ring.request_resend(first, last)
+            if run and run != board.run_id:  # an earlier run: its frames left the ring at START
+                gone = (first, last)
+            else:
+                gone = board.ring.request_resend(first, last)
             if gone:
                 fr.error_now(request, opcode, wire.ERR_NOT_HELD, gone[0], gone[1])
             else:

@@ -1,0 +1,259 @@
+"""`slipless record`: capture a run from a board over BLE.
+
+The recorder connects (any Central from slipless.transports), starts the run,
+pings for clock alignment, writes every notification and command to a
+capture file, decodes live to see gaps, asks the board to resend them,
+reconnects with back-off when the link drops, and ends with STOP and a drain.
+The state is a small table (STATES) so tests can walk it.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import Any
+
+from slipless.capture import RX, TX, CaptureWriter
+from slipless.decoder import Arrival, Decoder, NullSink, RunState
+from slipless.protocol import wire
+from slipless.transports import Central, LinkError
+
+# state -> the states it may move to
+STATES: dict[str, tuple[str, ...]] = {
+    "idle": ("connecting", "done"),
+    "connecting": ("live", "waiting", "done"),
+    "live": ("waiting", "stopping", "done"),
+    "waiting": ("connecting", "done"),  # back-off before reconnecting
+    "stopping": ("done",),
+    "done": (),
+}
+
+
+@dataclass
+class RecordOptions:
+    duration_s: float = 0.0  # 0: until the run ends or Ctrl-C
+    label: str = ""
+    ping_every_s: float = 1.0
+    resend_every_s: float = 0.5  # how often gaps are turned into RESEND commands
+    backoff_s: tuple[float, ...] = (0.2, 0.5, 1.0, 2.0, 5.0)
+    max_reconnects: int = 1000
+    drain_s: float = 2.0  # after STOP, wait this long for END and late frames
+    board: int = 0xFFFF  # command target (0xFFFF: whichever board answers)
+    start: bool = True  # send START on the first connection
+
+
+class _LiveSink(NullSink):
+    """Keeps the few things the live status line and the resend logic need."""
+
+    def __init__(self) -> None:
+        self.battery_mv = 0
+        self.ended = False
+        self.not_held: set[tuple[int, int, int]] = set()  # (board, run, seq) the board lost
+        self.last_error = ""
+
+    def status(self, run: RunState, seq: int, fields: dict[str, Any]) -> None:
+        self.battery_mv = fields["battery_mv"]
+
+    def reply(self, run: RunState, seq: int, kind: int, fields: dict[str, Any]) -> None:
+        if kind == wire.END:
+            self.ended = True
+        elif kind == wire.ERROR:
+            if fields["code"] == wire.ERR_NOT_HELD:
+                for seq in range(fields["detail_a"], fields["detail_b"] + 1):
+                    self.not_held.add((run.board, run.run, seq))
+            else:
+                self.last_error = wire.ERROR_NAMES.get(fields["code"], str(fields["code"]))
+
+
+@dataclass
+class Progress:
+    frames: int = 0
+    samples: int = 0
+    gaps: int = 0
+    missing: int = 0
+    resends_pending: int = 0
+    reconnects: int = 0
+    battery_mv: int = 0
+    state: str = "idle"
+    lost_ranges: list[tuple[int, int]] = field(default_factory=list)
+
+
+class Recorder:
+    def __init__(self, central: Central, capture: CaptureWriter, opts: RecordOptions,
+                 on_progress: Callable[[Progress], None] | None = None) -> None:
+        self.central = central
+        self.capture = capture
+        self.opts = opts
+        self.on_progress = on_progress
+        self.sink = _LiveSink()
+        self.decoder = Decoder(self.sink)
+        self.state = "idle"
+        self.progress = Progress()
+        self._enc = wire.Encoder(opts.board, 0)
+        self._request = 0
+        self._dropped = asyncio.Event()
+        self._stop = asyncio.Event()
+        self._requested: dict[tuple[int, int, int], float] = {}  # (board, run, first) -> time sent
+        self._started = False
+        self.commands_sent = 0
+
+    # ---- state -------------------------------------------------------------------
+    def _move(self, new: str) -> None:
+        if new not in STATES[self.state]:
+            raise RuntimeError(f"recorder cannot go from {self.state} to {new}")
+        self.state = new
+        self.progress.state = new
+
+    def stop(self) -> None:
+        """Ask for a clean end (Ctrl-C, --duration): STOP, drain, close."""
+        self._stop.set()
+
+    # ---- link callbacks ------------------------------------------------------------
+    def _on_data(self, data: bytes) -> None:
+        mono, wall = time.monotonic_ns(), time.time_ns()
+        self.capture.write(RX, 0, data, mono, wall)
+        self.decoder.feed(data, Arrival(0, mono, wall, "radio"))
+
+    def _on_disconnect(self, why: str) -> None:
+        self.capture.event(0, "disconnected", reason=why)
+        self.decoder.reset_source(0)
+        self._dropped.set()
+
+    async def _send(self, frame_len: int) -> None:
+        data = self._enc.frame(frame_len)
+        self.capture.write(TX, 0, data)
+        self.commands_sent += 1
+        await self.central.write(data)
+
+    def _next_request(self) -> int:
+        self._request = (self._request + 1) & 0xFFFF
+        return self._request
+
+    # ---- the run -----------------------------------------------------------------------
+    async def run(self) -> Progress:
+        deadline = time.monotonic() + self.opts.duration_s if self.opts.duration_s else None
+        attempt = 0
+        while not self._stop.is_set():
+            self._move("connecting")
+            try:
+                await self.central.connect(self._on_data, self._on_disconnect)
+            except LinkError:
+                if not self._started or attempt >= self.opts.max_reconnects:
+                    self._move("done")
+                    raise
+                await self._back_off(attempt)
+                attempt += 1
+                continue
+            attempt = 0
+            self._dropped.clear()
+            self.capture.event(0, "connected", mtu=self.central.mtu, address=self.central.address)
+            self._move("live")
+            if self.opts.start and not self._started:
+                await self._send(self._enc.start(self._next_request(), int(self.opts.duration_s),
+                                                 self.opts.label))
+            self._started = True
+            await self._live(deadline)
+            if self._stop.is_set() or self.sink.ended:
+                break
+            self.progress.reconnects += 1
+            await self._back_off(attempt)
+        if self.state == "live":
+            self._move("stopping")
+            await self._finish()
+        if self.state != "done":
+            self._move("done")
+        self.decoder.finish()
+        self._update()
+        return self.progress
+
+    async def _back_off(self, attempt: int) -> None:
+        self._move("waiting")
+        delay = self.opts.backoff_s[min(attempt, len(self.opts.backoff_s) - 1)]
+        try:
+            await asyncio.wait_for(self._stop.wait(), delay)
+        except TimeoutError:
+            pass
+
+    async def _live(self, deadline: float | None) -> None:
+        next_ping = time.monotonic()
+        next_resend = time.monotonic() + self.opts.resend_every_s
+        while not self._dropped.is_set() and not self._stop.is_set() and not self.sink.ended:
+            now = time.monotonic()
+            if deadline is not None and now >= deadline:
+                self._stop.set()
+                break
+            if now >= next_ping:
+                next_ping = now + self.opts.ping_every_s
+                await self._send(self._enc.ping(self._next_request(), time.monotonic_ns()))
+            if now >= next_resend:
+                next_resend = now + self.opts.resend_every_s
+                await self._request_resends(now)
+            self._update()
+            try:
+                await asyncio.wait_for(self._dropped.wait(), 0.05)
+            except TimeoutError:
+                pass
+
+    async def _request_resends(self, now: float) -> None:
+        """Ask again for every gap seen (each at most once per second)."""
+        lost = self.sink.not_held
+        for run in self.decoder.runs.values():
+            for first, last, _ in run.gaps:
+                while first <= last and (run.board, run.run, first) in lost:
+                    first += 1  # the board already said it no longer holds these
+                while last >= first and (run.board, run.run, last) in lost:
+                    last -= 1
+                if first > last:
+                    continue
+                key = (run.board, run.run, first)
+                if now - self._requested.get(key, -1e9) < 1.0:
+                    continue
+                self._requested[key] = now
+                self.capture.event(0, "resend", board=run.board, run=run.run, first=first,
+                                   last=last)
+                self._enc.run = run.run  # the header names the run the range belongs to
+                await self._send(self._enc.resend(self._next_request(), first, last))
+                self._enc.run = 0
+
+    async def _finish(self) -> None:
+        try:
+            await self._send(self._enc.command(wire.CMD_STOP, self._next_request()))
+        except LinkError:
+            return
+        end = time.monotonic() + self.opts.drain_s
+        while time.monotonic() < end:
+            await self._request_resends(time.monotonic())
+            if self.sink.ended and not any(r.gaps for r in self.decoder.runs.values()):
+                break
+            await asyncio.sleep(0.05)
+        await self.central.disconnect()
+
+    def _update(self) -> None:
+        """Refresh the progress figures (and the live status line)."""
+        p = self.progress
+        runs = list(self.decoder.runs.values())
+        p.frames = sum(r.received for r in runs)
+        p.samples = sum(r.samples for r in runs)
+        p.gaps = sum(len(r.gaps) for r in runs)
+        p.missing = sum(self.decoder.missing(r) for r in runs)
+        p.resends_pending = sum(1 for r in runs for g in r.gaps
+                                if (r.board, r.run, g[0]) in self._requested)
+        p.battery_mv = self.sink.battery_mv
+        p.lost_ranges = _ranges(sorted(self.sink.not_held))
+        if self.on_progress is not None:
+            self.on_progress(p)
+
+
+def _ranges(seqs: list[tuple[int, int, int]]) -> list[tuple[int, int]]:
+    """Sorted (board, run, seq) -> [(first, last)] runs of consecutive seqs."""
+    out: list[list[int]] = []
+    prev: tuple[int, int] | None = None
+    for board, run, seq in seqs:
+        if out and prev == (board, run) and out[-1][1] == seq - 1:
+            out[-1][1] = seq
+        else:
+            out.append([seq, seq])
+        prev = (board, run)
+    return [(a, b) for a, b in out]

@@ -1,0 +1,172 @@
+"""The board's own BLE code on a real BLE stack: MicroPython's `bluetooth` API
+implemented on a bumble Device, so firmware/link.py and firmware/board.py run
+unchanged (on CPython, on the simulated hardware layer) against real GATT,
+ATT, MTU exchange and notifications over bumble's virtual link.
+
+The stack's notification queue is modelled as a bounded queue drained by a
+task: when it is full, gatts_notify raises OSError(ENOMEM) as a board's stack
+does, and the firmware retries later.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import errno
+import sys
+from collections import deque
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any
+
+from bumble import gatt
+from bumble.core import UUID as BumbleUUID
+from bumble.device import Connection, Device
+
+_IRQ_CENTRAL_CONNECT = 1
+_IRQ_CENTRAL_DISCONNECT = 2
+_IRQ_GATTS_WRITE = 3
+_IRQ_MTU_EXCHANGED = 21
+QUEUE = 8  # notifications the "controller" holds before refusing more
+
+FIRMWARE = Path(__file__).resolve().parents[3] / "firmware"
+PROTOCOL = Path(__file__).resolve().parents[3] / "protocol"
+
+
+def firmware_on_path() -> None:
+    """Make the board modules importable as the board sees them (top-level names)."""
+    for p in (str(FIRMWARE), str(PROTOCOL)):
+        if p not in sys.path:
+            sys.path.insert(0, p)
+
+
+class UUID:
+    def __init__(self, value: str) -> None:
+        self.value = value
+
+
+class BLE:
+    """The subset of MicroPython's bluetooth.BLE that firmware/link.py uses."""
+
+    def __init__(self, device: Device) -> None:
+        self.device = device
+        self._handler: Callable[[int, Any], None] | None = None
+        self._chars: dict[int, gatt.Characteristic] = {}
+        self._written: dict[int, bytearray] = {}
+        self._queue: deque[bytes] = deque()
+        self._conn: Connection | None = None
+        self._wake = asyncio.Event()
+        self.notified = 0
+        self.refused = 0
+        self._drainer = asyncio.get_running_loop().create_task(self._drain())
+        device.on(device.EVENT_CONNECTION, self._on_connection)
+
+    # -- configuration --
+    def active(self, on: bool | None = None) -> bool:
+        return True
+
+    def config(self, **kw: Any) -> None:
+        if "mtu" in kw:
+            self.device.gatt_server.max_mtu = kw["mtu"]
+
+    def irq(self, handler: Callable[[int, Any], None]) -> None:
+        self._handler = handler
+
+    def gatts_register_services(self, services: Any) -> tuple[tuple[int, ...], ...]:
+        result = []
+        for svc_uuid, chars in services:
+            made = []
+            handles = []
+            for char_uuid, flags in chars:
+                h = len(self._chars) + 1
+                value: Any = b""
+                if flags & 0x0C:  # writable: collect what the laptop writes
+                    value = gatt.CharacteristicValue(write=self._writer(h))
+                c = gatt.Characteristic(BumbleUUID(char_uuid.value), flags,
+                                        gatt.Characteristic.READABLE | gatt.Characteristic.WRITEABLE,
+                                        value)
+                self._chars[h] = c
+                made.append(c)
+                handles.append(h)
+            self.device.add_service(gatt.Service(BumbleUUID(svc_uuid.value), made))
+            result.append(tuple(handles))
+        return tuple(result)
+
+    def gatts_set_buffer(self, handle: int, n: int, append: bool = False) -> None:
+        self._written[handle] = bytearray()
+
+    def gatts_read(self, handle: int) -> bytes:
+        data = bytes(self._written.get(handle, b""))
+        self._written[handle] = bytearray()
+        return data
+
+    def gap_advertise(self, interval_us: int, adv_data: bytes | None = None,
+                      resp_data: bytes | None = None, connectable: bool = True) -> None:
+        asyncio.get_running_loop().create_task(self.device.start_advertising(
+            advertising_data=adv_data, scan_response_data=resp_data,
+            advertising_interval_min=max(20.0, interval_us / 1000)))
+
+    def gatts_notify(self, conn: int, handle: int, data: Any = None) -> None:
+        if len(self._queue) >= QUEUE:
+            self.refused += 1
+            raise OSError(errno.ENOMEM)
+        self._queue.append(bytes(data))
+        self._wake.set()
+
+    # -- the stack side --
+    def _writer(self, h: int) -> Callable[[Connection, bytes], None]:
+        def write(connection: Connection, value: bytes) -> None:
+            self._written.setdefault(h, bytearray()).extend(value)
+            if self._handler is not None:
+                self._handler(_IRQ_GATTS_WRITE, (connection.handle, h))
+        return write
+
+    def _on_connection(self, connection: Connection) -> None:
+        self._conn = connection
+        self._queue.clear()
+        connection.on(connection.EVENT_DISCONNECTION, self._on_disconnection)
+        connection.on(connection.EVENT_CONNECTION_ATT_MTU_UPDATE,
+                      lambda: self._irq(_IRQ_MTU_EXCHANGED, (connection.handle, connection.att_mtu)))
+        self._irq(_IRQ_CENTRAL_CONNECT, (connection.handle, 0, bytes(6)))
+
+    def _on_disconnection(self, reason: int) -> None:
+        conn = self._conn
+        self._conn = None
+        self._queue.clear()  # a board's stack drops what it had not sent
+        self._irq(_IRQ_CENTRAL_DISCONNECT, (conn.handle if conn else 0, 0, bytes(6)))
+
+    def _irq(self, event: int, data: Any) -> None:
+        if self._handler is not None:
+            self._handler(event, data)
+
+    async def _drain(self) -> None:
+        data_char = None
+        while True:
+            await self._wake.wait()
+            self._wake.clear()
+            while self._queue and self._conn is not None:
+                if data_char is None:
+                    data_char = next(c for c in self._chars.values() if c.properties & 0x10)
+                value = self._queue[0]
+                try:
+                    await self.device.notify_subscriber(self._conn, data_char, value)
+                except Exception:  # the link went away mid-send: the board's queue is gone too
+                    self._queue.clear()
+                    break
+                if self._queue:
+                    self._queue.popleft()
+                self.notified += 1
+
+    def close(self) -> None:
+        self._drainer.cancel()
+
+
+class BluetoothModule:
+    """Stands in for `import bluetooth` on the board: exposes BLE and UUID."""
+
+    UUID = UUID
+
+    def __init__(self, device: Device) -> None:
+        self._ble = BLE(device)
+
+    def BLE(self) -> BLE:  # noqa: N802 - MicroPython's name
+        return self._ble
