@@ -56,6 +56,10 @@ def build_parser() -> argparse.ArgumentParser:
                    help="board profile (default: the config's profile, else esp32-devkitc)")
     f.add_argument("--config", type=Path, metavar="FILE", help="config JSON (default: built-in defaults)")
     f.add_argument("--dry-run", action="store_true", help="print what would be copied; touch nothing")
+
+    from slipless.record_cli import add_parsers as add_record_parsers
+
+    add_record_parsers(sub)
     return p
 
 
@@ -73,6 +77,10 @@ def main(argv: Sequence[str] | None = None) -> int:
             from slipless.flash import run_flash
 
             return run_flash(args, console)
+        if args.command in ("record", "pull"):
+            from slipless.record_cli import run_pull, run_record
+
+            return run_record(args, console) if args.command == "record" else run_pull(args, console)
     except SliplessError as exc:
         print(f"slipless: error: {exc}", file=sys.stderr)
         return EXIT_INPUT

@@ -33,6 +33,15 @@ class BleakCentral:
         self._client: Any = None
 
     async def _find(self) -> Any:
+        try:
+            return await self._scan()
+        except LinkError:
+            raise
+        except Exception as exc:  # no adapter, no BlueZ, permissions: bleak raises many kinds
+            raise LinkError(f"Bluetooth is not available to bleak here ({type(exc).__name__}: "
+                            f"{exc or 'no detail'}); try --backend bumble with a USB dongle") from exc
+
+    async def _scan(self) -> Any:
         scanner = self._bleak.BleakScanner
         if self.target and ":" in self.target:
             dev = await scanner.find_device_by_address(self.target, timeout=self.scan_s)

@@ -1,0 +1,157 @@
+"""`slipless record` and `slipless pull`: the command-line side of recording."""
+
+from __future__ import annotations
+
+import argparse
+import asyncio
+import platform
+import signal
+import tempfile
+import time
+from pathlib import Path
+from typing import Any
+
+from rich.console import Console
+from rich.live import Live
+from rich.text import Text
+
+from slipless import __version__
+from slipless.capture import CaptureWriter
+from slipless.errors import InputError
+from slipless.record import Progress, Recorder, RecordOptions
+from slipless.transports import BACKENDS, LinkError
+
+RUN_CAUTION = (
+    "Caution: START runs the board's pulse program: the coil will be energised. The rotor "
+    "must be secured, balanced and guarded; keep clear while it turns; local codes and "
+    "your institution's safety rules come first."
+)
+
+
+def add_parsers(sub: Any) -> None:
+    r = sub.add_parser("record", help="record a run from a board over BLE into a capture file")
+    r.add_argument("--out", type=Path, required=True, metavar="FILE.slcap",
+                   help="capture file to write")
+    r.add_argument("--board", dest="target", metavar="NAME|ADDRESS",
+                   help="board to connect to (default: the first advertising the slipless service)")
+    r.add_argument("--backend", choices=BACKENDS, default="bleak",
+                   help="bleak: the laptop's Bluetooth (default); bumble: an HCI dongle")
+    r.add_argument("--transport", default="usb:0",
+                   help="bumble transport spec (default usb:0)")
+    r.add_argument("--duration", type=float, default=0.0, metavar="S",
+                   help="stop after S seconds (default: until the run ends or Ctrl-C)")
+    r.add_argument("--label", default="", help="run label sent with START (at most 32 bytes)")
+    r.add_argument("--ping-every", type=float, default=1.0, metavar="S",
+                   help="time-sync ping cadence (default 1 s)")
+    r.add_argument("--no-start", action="store_true",
+                   help="only listen: do not send START (the coil stays as it is)")
+    r.add_argument("--sync-every", type=float, default=1.0, metavar="S",
+                   help="flush and fsync the capture every S seconds (default 1)")
+
+    p = sub.add_parser("pull", help="copy the board's file mirror to the laptop over USB")
+    p.add_argument("--port", required=True, help="serial port of the board (mpremote)")
+    p.add_argument("--path", default="/mirror.bin", help="mirror path on the board")
+    p.add_argument("--out", type=Path, required=True, metavar="FILE", help="where to write it")
+
+
+def _central(args: argparse.Namespace) -> tuple[Any, Any]:
+    if args.backend == "bleak":
+        from slipless.transports.bleak_central import BleakCentral
+
+        return BleakCentral(args.target), None
+    try:
+        from bumble.device import Device
+        from bumble.hci import Address
+        from bumble.transport import open_transport
+    except ImportError as exc:
+        raise InputError("the bumble back end needs bumble: pip install 'slipless[ble]'") from exc
+    from slipless.transports.bumble_central import BumbleCentral
+
+    async def make() -> Any:
+        transport = await open_transport(args.transport)
+        device = Device.with_hci("slipless", Address("F0:F1:F2:F3:F4:F5"), transport.source,
+                                 transport.sink)
+        await device.power_on()
+        return BumbleCentral(device, args.target), transport
+
+    return None, make
+
+
+def status_line(p: Progress, started: float) -> Text:
+    dt = max(time.monotonic() - started, 1e-6)
+    bat = f"{p.battery_mv / 1000:.2f} V" if p.battery_mv else "?"
+    return Text(f"[{p.state}] {p.frames:,} frames ({p.frames / dt:.1f}/s)  "
+                f"{p.samples:,} samples ({p.samples / dt:,.0f}/s)  gaps {p.gaps} "
+                f"(missing {p.missing})  resends pending {p.resends_pending}  "
+                f"lost {sum(b - a + 1 for a, b in p.lost_ranges)}  reconnects {p.reconnects}  "
+                f"battery {bat}")
+
+
+def run_record(args: argparse.Namespace, console: Console) -> int:
+    if len(args.label.encode()) > 32:
+        raise InputError("--label: at most 32 bytes")
+    if args.out.exists() and args.out.is_dir():
+        raise InputError(f"{args.out}: is a directory, expected a capture file name")
+    if not args.no_start:
+        console.print(RUN_CAUTION, style="bold")
+    return asyncio.run(_record(args, console))
+
+
+async def _record(args: argparse.Namespace, console: Console) -> int:
+    central, make = _central(args)
+    transport = None
+    if make is not None:
+        try:
+            central, transport = await make()
+        except Exception as exc:  # bumble raises many kinds for a missing dongle
+            raise InputError(f"cannot open bumble transport {args.transport}: {exc}") from exc
+    meta = {"slipless": __version__, "created_wall_ns": time.time_ns(),
+            "created_mono_ns": time.monotonic_ns(), "host": platform.node(),
+            "backend": args.backend, "sources": [{"target": args.target or ""}],
+            "sync_every_s": args.sync_every}
+    try:
+        writer = CaptureWriter(args.out, meta, args.sync_every)
+    except OSError as exc:
+        raise InputError(f"{args.out}: cannot write ({exc.strerror})") from exc
+    opts = RecordOptions(duration_s=args.duration, label=args.label,
+                         ping_every_s=args.ping_every, start=not args.no_start)
+    started = time.monotonic()
+    with Live(console=console, auto_refresh=False, transient=False) as live:
+        rec = Recorder(central, writer, opts,
+                       lambda p: live.update(status_line(p, started), refresh=True))
+        loop = asyncio.get_running_loop()
+        loop.add_signal_handler(signal.SIGINT, rec.stop)  # Ctrl-C: STOP, drain, close
+        try:
+            progress = await rec.run()
+        except LinkError as exc:
+            raise InputError(str(exc)) from exc
+        finally:
+            loop.remove_signal_handler(signal.SIGINT)
+            writer.close()
+            if transport is not None:
+                await transport.close()
+    console.print(f"capture written to {args.out} ({writer.records:,} records, "
+                  f"{writer.bytes:,} bytes); decode it with: slipless decode {args.out} --out DIR")
+    if progress.lost_ranges:
+        lost = ", ".join(f"{a}-{b}" for a, b in progress.lost_ranges)
+        console.print(f"the board no longer held frames {lost}: pull its mirror to recover them "
+                      "(slipless pull), or they are lost")
+    return 0
+
+
+def run_pull(args: argparse.Namespace, console: Console) -> int:
+    from slipless.flash import Board, FlashError, check_port
+
+    check_port(args.port)
+    board = Board(args.port)
+    with tempfile.TemporaryDirectory() as tmp:
+        local = Path(tmp) / "mirror.bin"
+        try:
+            board.run(["fs", "cp", ":" + args.path, str(local)], 600, f"copying {args.path}")
+        except FlashError as exc:
+            raise InputError(str(exc)) from exc
+        data = local.read_bytes()
+    args.out.write_bytes(data)
+    console.print(f"{len(data):,} bytes of {args.path} written to {args.out}; merge it with: "
+                  f"slipless decode CAPTURE --mirror {args.out} --out DIR")
+    return 0
