@@ -7,6 +7,8 @@ Prints one line per figure, then one JSON line with every figure:
   bytes_per_sample      bytes on air per sample, two 16-bit 1 kHz streams, default framing
   decode_peak_rss_MB    peak resident memory of a process decoding the big capture
   decode_peak_rss_small_MB  the same for a capture a tenth the size (memory must not grow)
+  board_alloc_bytes_per_frame, board_frame_us, board_loop_us   board code on MicroPython
+  record_kBps, sink_kBps, record_host_drops   recorder over bumble's virtual link
 """
 
 from __future__ import annotations
@@ -215,6 +217,9 @@ def main() -> int:
         figures["decode_peak_rss_MB"] = round(peak_rss(big), 1)
         figures["decode_peak_rss_small_MB"] = round(peak_rss(small), 1)
     figures.update(board_figures())
+    from bench_record import record_figures  # bumble is a test dependency, loaded on demand
+
+    figures.update(record_figures())
     for k, v in figures.items():
         print(f"{k:28s} {v}")
     print(json.dumps(figures, sort_keys=True))
