@@ -43,7 +43,8 @@ async def _pair() -> tuple[Device, Device, gatt.Characteristic]:
                                gatt.Characteristic.READABLE, b"")
     cmd = gatt.Characteristic(UUID(wire.COMMAND_UUID),
                               gatt.Characteristic.Properties.WRITE_WITHOUT_RESPONSE,
-                              gatt.Characteristic.WRITEABLE, gatt.CharacteristicValue(write=lambda c, v: None))
+                              gatt.Characteristic.WRITEABLE,
+                              gatt.CharacteristicValue(write=lambda c, v: None))
     periph.add_service(gatt.Service(UUID(wire.SERVICE_UUID), [data, cmd]))
     periph.gatt_server.max_mtu = 247
     await central.power_on()
