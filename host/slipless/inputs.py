@@ -83,9 +83,11 @@ def pieces(src: Source, on_progress: Callable[[int], None] | None = None) -> Ite
     elif src.kind == "capture":
         yield from _capture_pieces(src, on_progress)
     elif src.kind == "btsnoop":
-        from slipless.btsnoop import btsnoop_pieces
+        from slipless.btsnoop import BtsnoopReport, btsnoop_pieces
 
-        yield from btsnoop_pieces(src.path, on_progress)
+        report = BtsnoopReport()
+        yield from btsnoop_pieces(src.path, on_progress, report=report)
+        src.note = report.note(src.path.name)
     else:  # pragma: no cover - classify() makes only the kinds above
         raise InputError(f"{src.path}: unknown input kind {src.kind}")
 
