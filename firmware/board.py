@@ -64,6 +64,7 @@ class Board:
         self.rx_lo = 0
         self.deframer = wire.Deframer()
         self.link = None
+        self.mirror = None  # mirror.Mirror when the config enables it (main.py)
         self.config_error = None
 
     @property
@@ -132,6 +133,21 @@ class Board:
             return wire.ERR_BAD_ARGUMENT
         self.cfg = new
         self.hw.save_config(json.dumps(new))
+        return 0
+
+    def pull(self, request):
+        """PULL command: stream the mirror file over the link. Return 0 or an ERROR code."""
+        if self.mirror is None:
+            return wire.ERR_NO_MIRROR
+        if self.running or self.link is None:
+            return wire.ERR_BUSY
+        self.mirror.flush()
+        try:
+            f = open(self.mirror.path, "rb")
+        except OSError:
+            return wire.ERR_NO_MIRROR
+        self.link.bulk = f
+        self.link.on_bulk_done = lambda: self.framer.ack_now(request, wire.CMD_PULL)
         return 0
 
     def status(self):

@@ -64,6 +64,11 @@ def handle(board, body):
             _no_more(args, 0)
             board.status()
             fr.ack_now(request, opcode)
+        elif opcode == wire.CMD_PULL:
+            _no_more(args, 0)
+            code = board.pull(request)
+            if code:  # otherwise the ACK follows the last mirror byte (board.py)
+                fr.error_now(request, opcode, code)
         else:
             fr.error_now(request, opcode, wire.ERR_BAD_COMMAND)
     except _BAD_ARGS:

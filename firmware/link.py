@@ -67,6 +67,9 @@ class Link:
         self.frame_at = 0  # bytes of the current frame already in tx (small MTU split)
         self.refused = 0  # notifications the stack refused (retried)
         self.notified = 0
+        self.bulk = None  # an open file streamed when the ring is idle (PULL of the mirror)
+        self.on_bulk_done = None
+        self._bulk_mid = False  # the last bulk chunk ended inside a frame
         svc = bluetooth.UUID(wire.SERVICE_UUID)
         data = (bluetooth.UUID(wire.DATA_UUID), _FLAG_READ | _FLAG_NOTIFY)
         cmd = (bluetooth.UUID(wire.COMMAND_UUID), _FLAG_WRITE | _FLAG_WRITE_NO_RESPONSE)
@@ -123,8 +126,10 @@ class Link:
         r = self.ring
         cap = self.payload
         while True:
-            i = r.peek()
+            i = -1 if self._bulk_mid else r.peek()
             if i < 0:
+                if self.tx_n == 0 and self.bulk is not None:
+                    return self._fill_bulk(cap)
                 return self.tx_n > 0
             n = r.lens[i]
             slot = r.slots[i]
@@ -148,6 +153,30 @@ class Link:
                 self.frame_at = 0
                 r.take()
             return True
+
+    def _fill_bulk(self, cap):
+        """Next piece of the pulled file, cut after its last whole frame so live
+        frames never land inside one of its frames. Not a steady-state path: it
+        may allocate."""
+        n = self.bulk.readinto(self._views[cap])
+        if not n:
+            self.bulk.close()
+            self.bulk = None
+            self._bulk_mid = False
+            if self.on_bulk_done is not None:
+                self.on_bulk_done()
+            return False
+        k = n - 1
+        while k >= 0 and self.tx[k] != 0:
+            k -= 1
+        if k < 0 or n < cap:  # no frame end in reach (small MTU), or the file's tail
+            self.tx_n = n
+            self._bulk_mid = self.tx[n - 1] != 0
+        else:
+            self.tx_n = k + 1
+            self.bulk.seek(k + 1 - n, 1)
+            self._bulk_mid = False
+        return True
 
     def _notify(self):
         try:

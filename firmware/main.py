@@ -28,6 +28,7 @@ def main():
         mirror = None
     board = Board(cfg, hw, hw.next_run_id())
     board.config_error = err
+    board.mirror = mirror
     board.link = Link(bluetooth.BLE(), bluetooth, cfg["name"], board.ring, board.command_bytes)
     hw.start_watchdog(8000)  # a hung loop resets the board, and the reset turns the coil off
     while True:

@@ -14,6 +14,7 @@ BUFFER = 2048
 
 class Mirror:
     def __init__(self, path, max_bytes, flush_every_ms, now_ms):
+        self.path = path
         self.f = open(path, "ab")
         self.size = self.f.tell() if hasattr(self.f, "tell") else 0
         self.max_bytes = max_bytes

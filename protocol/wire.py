@@ -45,7 +45,9 @@ CMD_SET_CONFIG = const(3)
 CMD_PING = const(4)
 CMD_RESEND = const(5)
 CMD_STATUS = const(6)
-COMMAND_NAMES = {1: "start", 2: "stop", 3: "set_config", 4: "ping", 5: "resend", 6: "status"}
+CMD_PULL = const(7)  # stream the board's file mirror over the link
+COMMAND_NAMES = {1: "start", 2: "stop", 3: "set_config", 4: "ping", 5: "resend", 6: "status",
+                 7: "pull"}
 
 # Error codes carried by ERROR frames.
 ERR_BAD_COMMAND = const(1)
@@ -53,7 +55,9 @@ ERR_BAD_ARGUMENT = const(2)
 ERR_NOT_HELD = const(3)  # resend range no longer in the board's ring: detail = first, last
 ERR_BUSY = const(4)
 ERR_REFUSED = const(5)  # refused for safety (coil limits, no run)
-ERROR_NAMES = {1: "bad_command", 2: "bad_argument", 3: "not_held", 4: "busy", 5: "refused"}
+ERR_NO_MIRROR = const(6)  # PULL: the board keeps no file mirror
+ERROR_NAMES = {1: "bad_command", 2: "bad_argument", 3: "not_held", 4: "busy", 5: "refused",
+               6: "no_mirror"}
 
 # Event codes carried by EVENTS frames.
 EV_COIL = const(1)  # value: coil polarity now -1, 0 or +1

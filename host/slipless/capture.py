@@ -63,6 +63,7 @@ class CaptureWriter:
     """Append records; flush and fsync every `sync_every_s` seconds."""
 
     def __init__(self, path: Path, meta: dict[str, Any], sync_every_s: float = 1.0) -> None:
+        self.path = path
         self._f: BinaryIO = path.open("wb")
         raw = json.dumps(meta, sort_keys=True).encode()
         self._f.write(_FILE_HEAD.pack(MAGIC, VERSION, len(raw), zlib.crc32(raw)) + raw)

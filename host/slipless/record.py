@@ -42,6 +42,7 @@ class RecordOptions:
     drain_s: float = 2.0  # after STOP, wait this long for END and late frames
     board: int = 0xFFFF  # command target (0xFFFF: whichever board answers)
     start: bool = True  # send START on the first connection
+    pull: bool = False  # instead: ask for the board's file mirror and end when it has come
 
 
 class _LiveSink(NullSink):
@@ -52,6 +53,7 @@ class _LiveSink(NullSink):
         self.ended = False
         self.not_held: set[tuple[int, int, int]] = set()  # (board, run, seq) the board lost
         self.last_error = ""
+        self.pulled = False  # the ACK that follows the last byte of a pulled mirror
 
     def status(self, run: RunState, seq: int, fields: dict[str, Any]) -> None:
         self.battery_mv = fields["battery_mv"]
@@ -59,6 +61,8 @@ class _LiveSink(NullSink):
     def reply(self, run: RunState, seq: int, kind: int, fields: dict[str, Any]) -> None:
         if kind == wire.END:
             self.ended = True
+        elif kind == wire.ACK and fields["opcode"] == wire.CMD_PULL:
+            self.pulled = True
         elif kind == wire.ERROR:
             if fields["code"] == wire.ERR_NOT_HELD:
                 for seq in range(fields["detail_a"], fields["detail_b"] + 1):
@@ -150,12 +154,15 @@ class Recorder:
             self._dropped.clear()
             self.capture.event(0, "connected", mtu=self.central.mtu, address=self.central.address)
             self._move("live")
-            if self.opts.start and not self._started:
+            if self.opts.pull and not self._started:
+                await self._send(self._enc.command(wire.CMD_PULL, self._next_request()))
+            elif self.opts.start and not self._started:
                 await self._send(self._enc.start(self._next_request(), int(self.opts.duration_s),
                                                  self.opts.label))
             self._started = True
             await self._live(deadline)
-            if self._stop.is_set() or self.sink.ended:
+            if (self._stop.is_set() or self.sink.ended or self.sink.pulled
+                    or (self.opts.pull and self.sink.last_error)):
                 break
             self.progress.reconnects += 1
             await self._back_off(attempt)
@@ -179,7 +186,8 @@ class Recorder:
     async def _live(self, deadline: float | None) -> None:
         next_ping = time.monotonic()
         next_resend = time.monotonic() + self.opts.resend_every_s
-        while not self._dropped.is_set() and not self._stop.is_set() and not self.sink.ended:
+        while not (self._dropped.is_set() or self._stop.is_set() or self.sink.ended
+                   or self.sink.pulled or (self.opts.pull and self.sink.last_error)):
             now = time.monotonic()
             if deadline is not None and now >= deadline:
                 self._stop.set()
@@ -218,6 +226,9 @@ class Recorder:
                 self._enc.run = 0
 
     async def _finish(self) -> None:
+        if self.opts.pull:  # nothing was started: nothing to stop
+            await self.central.disconnect()
+            return
         try:
             await self._send(self._enc.command(wire.CMD_STOP, self._next_request()))
         except LinkError:

@@ -48,9 +48,14 @@ def add_parsers(sub: Any) -> None:
     r.add_argument("--sync-every", type=float, default=1.0, metavar="S",
                    help="flush and fsync the capture every S seconds (default 1)")
 
-    p = sub.add_parser("pull", help="copy the board's file mirror to the laptop over USB")
-    p.add_argument("--port", required=True, help="serial port of the board (mpremote)")
-    p.add_argument("--path", default="/mirror.bin", help="mirror path on the board")
+    p = sub.add_parser("pull", help="copy the board's file mirror to the laptop (USB or BLE)")
+    how = p.add_mutually_exclusive_group(required=True)
+    how.add_argument("--port", help="over USB: the board's serial port (mpremote)")
+    how.add_argument("--link", action="store_true", help="over BLE, like record (board idle)")
+    p.add_argument("--path", default="/mirror.bin", help="mirror path on the board (USB)")
+    p.add_argument("--board", dest="target", metavar="NAME|ADDRESS", help="board to connect to")
+    p.add_argument("--backend", choices=BACKENDS, default="bleak")
+    p.add_argument("--transport", default="usb:0", help="bumble transport spec")
     p.add_argument("--out", type=Path, required=True, metavar="FILE", help="where to write it")
 
 
@@ -75,6 +80,41 @@ def _central(args: argparse.Namespace) -> tuple[Any, Any]:
         return BumbleCentral(device, args.target), transport
 
     return None, make
+
+
+async def _pull_link(args: argparse.Namespace, console: Console) -> int:
+    """PULL over BLE: what arrives is frames; the file written is a mirror file."""
+    central, make = _central(args)
+    transport = None
+    if make is not None:
+        central, transport = await make()
+    with tempfile.TemporaryDirectory() as tmp:
+        writer = CaptureWriter(Path(tmp) / "pull.slcap", {"backend": args.backend})
+        rec = Recorder(central, writer, RecordOptions(pull=True, ping_every_s=3600))
+        try:
+            await pull_into(rec, writer, args.out)
+        except LinkError as exc:
+            raise InputError(str(exc)) from exc
+        finally:
+            if transport is not None:
+                await transport.close()
+    if rec.sink.last_error:
+        raise InputError(f"the board refused the pull: {rec.sink.last_error}")
+    console.print(f"{args.out.stat().st_size:,} bytes of mirror written to {args.out}; merge it "
+                  f"with: slipless decode CAPTURE --mirror {args.out} --out DIR")
+    return 0
+
+
+async def pull_into(rec: Recorder, writer: CaptureWriter, out: Path) -> None:
+    """Run a pull and write the bytes the board sent, as a mirror file."""
+    from slipless.capture import RX, CaptureReader
+
+    await rec.run()
+    writer.close()
+    with writer.path.open("rb") as f, out.open("wb") as dst:
+        for r in CaptureReader(f):
+            if r.type == RX:
+                dst.write(r.payload)
 
 
 def status_line(p: Progress, started: float) -> Text:
@@ -140,6 +180,8 @@ async def _record(args: argparse.Namespace, console: Console) -> int:
 
 
 def run_pull(args: argparse.Namespace, console: Console) -> int:
+    if args.link:
+        return asyncio.run(_pull_link(args, console))
     from slipless.flash import Board, FlashError, check_port
 
     check_port(args.port)

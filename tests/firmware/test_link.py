@@ -88,3 +88,66 @@ def test_default_mtu_splits_frames(micropython) -> None:
     dec, _ = decode(notes)
     (run_,) = [r for r in dec.runs.values() if r.samples]
     assert dec.missing(run_) == 0 and dec.counters.corrupt == 0
+
+
+PULL_CODE = """
+import json, config, bluetooth, os
+from board import Board
+from link import Link
+from mirror import Mirror
+from simhw import SimHW
+try:
+    os.remove('/tmp/pull-mirror.bin')
+except OSError:
+    pass
+cfg = config.validate(json.loads({cfg!r}))
+hw = SimHW()
+m = cfg['mirror']
+mirror = Mirror(m['path'], m['max_bytes'], m['flush_every_ms'], hw.ticks_ms())
+hw.on_frame = mirror.write
+b = Board(cfg, hw, hw.next_run_id())
+b.mirror = mirror
+ble = bluetooth.BLE()
+b.link = Link(ble, bluetooth, cfg['name'], b.ring, b.command_bytes)
+ble.connect()
+ble.mtu({mtu})
+def run_for(us, step=200):
+    t = 0
+    while t < us:
+        hw.advance(step)
+        b.poll()
+        mirror.poll(hw.ticks_ms())
+        t += step
+ble.write(bytes.fromhex({start!r}))
+run_for(400_000)
+ble.write(bytes.fromhex({stop!r}))
+run_for(20_000)
+live = len(ble.notes)
+ble.write(bytes.fromhex({pull!r}))
+run_for(300_000)
+print(''.join(n.hex() + ',' for n in ble.notes[:live]))
+print(''.join(n.hex() + ',' for n in ble.notes[live:]))
+"""
+
+
+def test_pull_streams_the_mirror_between_live_frames(micropython) -> None:
+    cfg = dict(CONFIG, mirror={"enabled": True, "path": "/tmp/pull-mirror.bin",
+                               "max_bytes": 100000, "flush_every_ms": 100})
+    enc = wire.Encoder(0xFFFF, 0)
+    start = enc.frame(enc.start(1, 0, "")).hex()
+    stop = enc.frame(enc.command(wire.CMD_STOP, 2)).hex()
+    pull = enc.frame(enc.command(wire.CMD_PULL, 3)).hex()
+    for mtu in (247, 23):
+        out = micropython(PULL_CODE.format(cfg=json.dumps(cfg), mtu=mtu, start=start, stop=stop,
+                                           pull=pull),
+                          files={"/lib/bluetooth.py": (HERE / "sim_bluetooth.py").read_text()})
+        live_hex, pulled_hex = out.strip().split("\n")
+        live = [bytes.fromhex(n) for n in live_hex.split(",") if n]
+        pulled = [bytes.fromhex(n) for n in pulled_hex.split(",") if n]
+        assert max(len(n) for n in pulled) <= mtu - 3
+        dec, sink = decode(live + pulled)
+        assert dec.counters.corrupt == 0 and dec.counters.overlong == 0
+        (run_,) = [r for r in dec.runs.values() if r.samples]
+        assert run_.duplicates >= run_.received // 2  # the mirror copy of the run came again
+        acks = [r for r in sink.replies if r[3] == "ack"]
+        assert len(acks) == 3  # start, stop, and pull after the last mirror byte

@@ -127,3 +127,63 @@ def test_record_with_cut_link_then_merge_mirror(tmp_path: Path) -> None:
         (tmp_path / "run.slcap").open("rb")) if r.type == capture.EVENT]
     assert [e["mtu"] for e in meta_events if e["event"] == "connected"] == [247, 247]
     assert out["commands"] >= 5
+
+
+async def pull_session(tmp: Path) -> None:
+    ble_board.firmware_on_path()
+    import config as fw_config
+    from board import Board
+    from link import Link
+    from mirror import Mirror
+    from simhw import SimHW
+
+    laptop_dev, board_dev = make_devices()
+    await laptop_dev.power_on()
+    await board_dev.power_on()
+    hw = SimHW()
+    assert Path.cwd() == tmp  # board paths are short (64 bytes at most): the mirror is relative
+    cfg = fw_config.validate(dict(CONFIG, mirror={"enabled": True, "path": "board.mirror",
+                                                  "max_bytes": 1 << 20, "flush_every_ms": 100}))
+    m = cfg["mirror"]
+    mirror = Mirror(m["path"], m["max_bytes"], m["flush_every_ms"], hw.ticks_ms())
+    hw.on_frame = mirror.write
+    board = Board(cfg, hw, hw.next_run_id())
+    board.mirror = mirror
+    bt = ble_board.BluetoothModule(board_dev)
+    board.link = Link(bt.BLE(), bt, CONFIG["name"], board.ring, board.command_bytes)
+    stop = asyncio.Event()
+
+    async def board_loop() -> None:
+        while not stop.is_set():
+            hw.advance(SIM_STEP_US)
+            board.poll()
+            mirror.poll(hw.ticks_ms())
+            await asyncio.sleep(0.0005)
+
+    task = asyncio.create_task(board_loop())
+    w1 = capture.CaptureWriter(tmp / "run.slcap", {})
+    await Recorder(BumbleCentral(laptop_dev, None), w1,
+                   RecordOptions(duration_s=1.5, ping_every_s=0.5)).run()
+    w1.close()
+    await asyncio.sleep(0.2)
+    from slipless.record_cli import pull_into
+
+    w2 = capture.CaptureWriter(tmp / "pull.slcap", {})
+    await pull_into(Recorder(BumbleCentral(laptop_dev, None), w2, RecordOptions(pull=True)),
+                    w2, tmp / "pulled.mirror")
+    stop.set()
+    await task
+    bt.BLE().close()
+    mirror.flush()
+
+
+def test_pull_mirror_over_the_link(tmp_path: Path, monkeypatch) -> None:
+    monkeypatch.chdir(tmp_path)
+    asyncio.run(pull_session(tmp_path))
+    board_copy = decode_files([tmp_path / "board.mirror"], tmp_path / "a", "csv", None)
+    pulled = decode_files([tmp_path / "pulled.mirror"], tmp_path / "b", "csv", None)
+    for key, run in board_copy.runs.items():
+        if run.samples:  # the recorded run: every frame of it came over the link
+            assert pulled.runs[key].received == run.received
+            assert pulled.runs[key].samples == run.samples
+    assert pulled.counters.corrupt == 0
