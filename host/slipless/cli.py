@@ -60,6 +60,12 @@ def build_parser() -> argparse.ArgumentParser:
     from slipless.record_cli import add_parsers as add_record_parsers
 
     add_record_parsers(sub)
+    from slipless.analysis_args import add_parsers as add_analysis_parsers
+
+    add_analysis_parsers(sub)
+    from slipless.loss_cli import add_parser as add_loss_parser
+
+    add_loss_parser(sub)
     return p
 
 
@@ -81,6 +87,18 @@ def main(argv: Sequence[str] | None = None) -> int:
             from slipless.record_cli import run_pull, run_record
 
             return run_record(args, console) if args.command == "record" else run_pull(args, console)
+        if args.command == "predict":
+            from slipless.predict import run_predict
+
+            return run_predict(args, console)
+        if args.command == "pulses":
+            from slipless.pulses import run_pulses
+
+            return run_pulses(args, console)
+        if args.command == "loss":
+            from slipless.loss_cli import run_loss
+
+            return run_loss(args, console)
     except SliplessError as exc:
         print(f"slipless: error: {exc}", file=sys.stderr)
         return EXIT_INPUT

@@ -219,7 +219,7 @@ def render(rig: RigInputs, res: dict[str, Any], warns: list[str], console: Conso
     lat = "at the pole (no latitude given: the upper bound)" if rig.latitude_deg is None \
         else f"at latitude {rig.latitude_deg:g} deg"
     console.print(f"Earth's rotation {lat}: {res['earth_fraction']:.2g} of the rotor's rate, "
-                  f"a {si(res['earth_amp_output_V'], 'V')} term at the output: below any "
+                  f"giving {si(res['earth_amp_output_V'], 'V')} at the output: below any "
                   "resolvable signal on a bench rig.")
     console.print("assumptions (a model, not a verdict):")
     for a in physics.ASSUMPTIONS:

@@ -13,7 +13,8 @@ The amplifier sees, before its own first-order bandwidth:
   pickup     M * dI/dt         inductive kick at switching, settles with the amplifier
   heating    e * |I|           same sign for both polarities
   spin       k * w             an offset while spinning (removed by the baselines)
-plus a linear drift, a random walk, white noise, and 16-bit quantisation.
+plus a linear drift, a random walk, white noise that grows while spinning
+(vibration), and 16-bit quantisation.
 Everything is deterministic for a seed and vectorised (a few minutes in well
 under a second).
 """
@@ -52,6 +53,7 @@ class RigConfig:
     blocks_rad_s: tuple[float, ...] = (0.0, TWO_PI, -TWO_PI, 0.0, -TWO_PI, TWO_PI)
     block_s: float = 30.0
     ramp_s: float = 2.0  # coil off while the rotor changes speed
+    quiet_s: float = 1.0  # and a little longer, so the first baseline sees a steady rotor
     pulse_s: float = 1.0  # each state of (+, off, -, off)
     # apparatus (predict.RigInputs)
     inner_m: float = 0.02
@@ -77,6 +79,7 @@ class RigConfig:
     drift_v_per_s: float = 5.0e-6
     walk_v_per_rt_s: float = 2.0e-4
     noise_v: float = 5.0e-3
+    vibration_v_per_rad_s: float = 1.0e-3  # extra noise while spinning (makes noise unequal)
     current_noise_a: float = 2.0e-3
     gyro_noise_rad_s: float = 0.02
     gyro_bias_rad_s: float = 0.003
@@ -134,12 +137,12 @@ class RigSignals:
 
 
 def coil_program(cfg: RigConfig) -> tuple[np.ndarray, np.ndarray]:
-    """Coil command times (s) and states: per block, off during the ramp, then
-    (+, off, -, off) cycles that fit whole before the block ends."""
+    """Coil command times (s) and states: per block, off during the ramp and a
+    quiet spell, then (+, off, -, off) cycles that fit whole before the block ends."""
     times, states = [], []
     cycle = 4 * cfg.pulse_s
     for k in range(len(cfg.blocks_rad_s)):
-        t = k * cfg.block_s + cfg.ramp_s
+        t = k * cfg.block_s + cfg.ramp_s + cfg.quiet_s
         while t + cycle <= (k + 1) * cfg.block_s + 1e-9:
             for j, st in enumerate((1, 0, -1, 0)):
                 times.append(t + j * cfg.pulse_s)
@@ -199,7 +202,8 @@ def signals(cfg: RigConfig) -> RigSignals:
     a = math.exp(-1.0 / (cfg.rate_hz * cfg.amp_tau_s))
     amp = lfilter([1.0 - a], [1.0, -a], into_amp)
     walk = np.cumsum(rng.normal(0.0, cfg.walk_v_per_rt_s / math.sqrt(cfg.rate_hz), n))
-    cap = amp + cfg.drift_v_per_s * t + walk + rng.normal(0.0, cfg.noise_v, n)
+    noise = np.hypot(cfg.noise_v, cfg.vibration_v_per_rad_s * np.abs(w))
+    cap = amp + cfg.drift_v_per_s * t + walk + noise * rng.standard_normal(n)
     shunt = cur + rng.normal(0.0, cfg.current_noise_a, n)
     gt = np.arange(int(round(cfg.seconds * cfg.gyro_rate_hz))) / cfg.gyro_rate_hz
     gyro = rotation(cfg, gt) + earth + cfg.gyro_bias_rad_s + rng.normal(
