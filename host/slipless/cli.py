@@ -47,7 +47,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     m = sub.add_parser("demo", help="simulate a run over a damaging link, decode it, write tables")
     m.add_argument("--out", type=Path, default=Path("demo-out"), metavar="DIR")
-    m.add_argument("--seconds", type=float, default=120.0, help="simulated run length")
+    m.add_argument("--seconds", type=float, default=180.0, help="simulated run length (default 180)")
     m.add_argument("--seed", type=int, default=1)
 
     f = sub.add_parser("flash", help="check a config, compile and copy the firmware to a board, verify")
@@ -66,6 +66,9 @@ def build_parser() -> argparse.ArgumentParser:
     from slipless.loss_cli import add_parser as add_loss_parser
 
     add_loss_parser(sub)
+    from slipless.align_cli import add_parser as add_align_parser
+
+    add_align_parser(sub)
     return p
 
 
@@ -83,6 +86,10 @@ def main(argv: Sequence[str] | None = None) -> int:
             from slipless.flash import run_flash
 
             return run_flash(args, console)
+        if args.command == "align":
+            from slipless.align_cli import run_align
+
+            return run_align(args, console)
         if args.command in ("record", "pull"):
             from slipless.record_cli import run_pull, run_record
 

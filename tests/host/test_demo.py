@@ -1,7 +1,9 @@
-"""`slipless demo`: deterministic with its seed; its printed numbers are checked."""
+"""`slipless demo`: deterministic with its seed; its printed numbers are checked
+against the simulation's own truth."""
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
 
 from rich.console import Console
@@ -12,13 +14,16 @@ from slipless.demo import run_demo
 
 def test_demo_numbers(tmp_path: Path) -> None:
     console = Console(record=True, width=400)
-    args = build_parser().parse_args(["demo", "--out", str(tmp_path), "--seconds", "30",
+    args = build_parser().parse_args(["demo", "--out", str(tmp_path), "--seconds", "60",
                                       "--seed", "1"])
     assert run_demo(args, console) == 0
     text = console.export_text()
-    assert "577 frames sent, 565 decoded, 12 lost on the link; 9 reported missing or corrupt, " \
-           "3 lost after the last frame received" in text
-    assert "every lost frame accounted for" in text
+    assert ("1224 frames sent, 1208 decoded, 16 lost on the link; 16 reported missing or corrupt: "
+            "every lost frame accounted for") in text
+    # the induction term and the artifact each land inside their interval
+    assert re.search(r"d \(field x rotation \(induction\)\): .* inside the 95% interval", text)
+    assert re.search(r"b \(field only \(artifact\)\): .* inside the 95% interval", text)
     for name in ("samples", "events", "status", "frames", "streams", "runs", "replies"):
         assert (tmp_path / "tables" / f"{name}.csv").stat().st_size > 0
-    assert (tmp_path / "link.bin").stat().st_size == 130_211
+    for name in ("fit.csv", "conditions.csv", "conditions.png", "summary.json"):
+        assert (tmp_path / "pulses" / name).stat().st_size > 0
