@@ -158,9 +158,12 @@ class Link:
         """Next piece of the pulled file, cut after its last whole frame so live
         frames never land inside one of its frames. Not a steady-state path: it
         may allocate."""
-        n = self.bulk.readinto(self._views[cap])
+        f = self.bulk
+        if f is None:
+            return False
+        n = f.readinto(self._views[cap])
         if not n:
-            self.bulk.close()
+            f.close()
             self.bulk = None
             self._bulk_mid = False
             if self.on_bulk_done is not None:
@@ -174,7 +177,7 @@ class Link:
             self._bulk_mid = self.tx[n - 1] != 0
         else:
             self.tx_n = k + 1
-            self.bulk.seek(k + 1 - n, 1)
+            f.seek(k + 1 - n, 1)
             self._bulk_mid = False
         return True
 
