@@ -9,6 +9,7 @@ Prints one line per figure, then one JSON line with every figure:
   decode_peak_rss_small_MB  the same for a capture a tenth the size (memory must not grow)
   board_alloc_bytes_per_frame, board_frame_us, board_loop_us   board code on MicroPython
   record_kBps, sink_kBps, record_host_drops   recorder over bumble's virtual link
+  align_p99_ms, align_lsq_p99_ms, align_err_over_u, align_seconds_1M   clock fit (bench_align.py)
 """
 
 from __future__ import annotations
@@ -220,6 +221,9 @@ def main() -> int:
     from bench_record import record_figures  # bumble is a test dependency, loaded on demand
 
     figures.update(record_figures())
+    from bench_align import align_figures
+
+    figures.update(align_figures())
     for k, v in figures.items():
         print(f"{k:28s} {v}")
     print(json.dumps(figures, sort_keys=True))
