@@ -1,0 +1,218 @@
+"""The loss report as a JSON document and as terminal tables.
+
+JSON keys are stable: scripts read them. Top-level frame and sample counts are
+sums over every board and run; `runs` and `gaps` hold the detail. Board times
+are integer microseconds since the board booted, laptop times integer
+nanoseconds of the laptop's wall clock (Unix epoch), so nothing is rounded.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+from rich.console import Console
+from rich.table import Table
+
+from slipless import __version__
+from slipless.loss import TERMS, Gap, RunAccount
+from slipless.loss_collect import Facts
+
+_LABELS = {"received": "received", "recovered_resend": "resent", "recovered_mirror": "from mirror",
+           "lost": "lost (radio)", "dropped_board": "dropped (board)"}
+MAX_GAP_ROWS = 20  # terminal only; the JSON document lists every gap
+
+
+def _frames(a: RunAccount) -> dict[str, int]:
+    t = a.terms
+    return {
+        "frames_expected": a.expected,
+        "frames_received": t["received"],
+        "frames_recovered": a.recovered,
+        "frames_recovered_resend": t["recovered_resend"],
+        "frames_recovered_mirror": t["recovered_mirror"],
+        "frames_lost": t["lost"],
+        "frames_dropped_board": t["dropped_board"],
+        "frames_missing": t["lost"] + t["dropped_board"],
+        "frames_corrupt": a.corrupt,
+        "frames_duplicate": a.duplicates,
+        "frames_out_of_order": a.out_of_order,
+        "frames_mirror_copies": a.mirror_copies,
+    }
+
+
+def _samples(a: RunAccount) -> dict[str, int]:
+    s = {term: sum(x.samples[term] for x in a.streams) for term in TERMS}
+    return {
+        "samples_expected": sum(x.expected for x in a.streams),
+        "samples_received": s["received"],
+        "samples_recovered": s["recovered_resend"] + s["recovered_mirror"],
+        "samples_lost": s["lost"],
+        "samples_dropped_board": s["dropped_board"],
+        "samples_missing": s["lost"] + s["dropped_board"],
+    }
+
+
+def _gap(a: RunAccount, g: Gap) -> dict[str, Any]:
+    d: dict[str, Any] = {"board": a.board, "run": a.run, "first_seq": g.first, "last_seq": g.last,
+                         "frames": g.frames, **g.terms, "corrupt": g.corrupt,
+                         "board_counted": g.board_counted,
+                         "board_start_us": g.board_start_us, "board_end_us": g.board_end_us,
+                         "duration_s": (g.board_end_us - g.board_start_us) / 1e6
+                         if g.board_start_us is not None and g.board_end_us is not None else None,
+                         "laptop_start_ns": g.laptop_start_ns, "laptop_end_ns": g.laptop_end_ns,
+                         "cause": g.cause, "evidence": g.evidence, "resendable": g.resendable}
+    if a.angle_rad is not None:
+        ang = a.angle_rad[g.first : g.last + 1]
+        ang = ang[np.isfinite(ang)]
+        d["angle_deg"] = (float(np.degrees(np.angle(np.exp(1j * ang).mean())) % 360)
+                          if ang.size else None)
+    return d
+
+
+def _stream(s: Any) -> dict[str, Any]:
+    d: dict[str, Any] = {"stream": s.stream, "name": s.name, "unit": s.unit, "period_us": s.period_us,
+                         "expected_from_end": s.expected_known, "closes": s.closes,
+                         "samples_expected": s.expected}
+    d.update({f"samples_{k}": v for k, v in s.samples.items()})
+    d.update({"seconds_expected": s.seconds("expected")})
+    d.update({f"seconds_{k}": s.seconds(k) for k in s.samples})
+    d.update({f"frames_{k}": v for k, v in s.frames.items()})
+    return d
+
+
+def run_dict(a: RunAccount) -> dict[str, Any]:
+    return {"board": a.board, "run": a.run, "end_seen": a.end_seen, "closes": a.closes,
+            **_frames(a), **_samples(a),
+            "loss_fraction": (a.terms["lost"] + a.terms["dropped_board"]) / a.expected
+            if a.expected else 0.0,
+            "streams": [_stream(s) for s in a.streams], "gaps": [_gap(a, g) for g in a.gaps],
+            "burst": a.burst, "angle": a.angle, "checks": a.checks,
+            "discrepancies": a.discrepancies, "notes": a.notes}
+
+
+def document(accounts: Sequence[RunAccount], facts: Facts, max_loss: float | None) -> dict[str, Any]:
+    runs = [run_dict(a) for a in accounts]
+    keys = list(_frames(accounts[0])) + list(_samples(accounts[0])) if accounts else []
+    total = {k: sum(r[k] for r in runs) for k in keys}
+    frac = total["frames_missing"] / total["frames_expected"] if total.get("frames_expected") else 0.0
+    sfrac = (total["samples_missing"] / total["samples_expected"]
+             if total.get("samples_expected") else 0.0)
+    c = facts.decoder.counters
+    return {
+        "slipless": __version__,
+        "inputs": [str(s.path) for s in facts.sources if s.kind != "mirror"],
+        "mirrors": [str(s.path) for s in facts.sources if s.kind == "mirror"],
+        **total,
+        "loss_fraction": frac,
+        "samples_loss_fraction": sfrac,
+        "max_loss_percent": max_loss,
+        "passed": max_loss is None or frac * 100 <= max_loss,
+        "closes": all(a.closes for a in accounts),
+        "end_seen": all(a.end_seen for a in accounts),
+        "corrupt_segments": c.corrupt + c.overlong,
+        "corrupt_bytes": c.corrupt_bytes,
+        "skipped_bytes": c.skipped_bytes,
+        "gaps": [g for r in runs for g in r["gaps"]],
+        "runs": runs,
+    }
+
+
+# ---- terminal ----------------------------------------------------------------------------
+def _pct(n: int, of: int) -> str:
+    return f"{100 * n / of:.2f} %" if of else "-"
+
+
+def _clock(wall_ns: int | None) -> str:
+    if wall_ns is None:
+        return "-"
+    return dt.datetime.fromtimestamp(wall_ns / 1e9).strftime("%H:%M:%S.%f")[:-3]
+
+
+def _accounting_table(a: RunAccount) -> Table:
+    t = Table(title=f"board {a.board} run {a.run}", title_justify="left")
+    t.add_column("", no_wrap=True)
+    t.add_column("frames", justify="right")
+    t.add_column("%", justify="right")
+    for s in a.streams:
+        t.add_column(f"{s.name} samples", justify="right")
+        t.add_column("s", justify="right")
+    rows = [("expected", a.expected, {s.stream: s.expected for s in a.streams}, "expected")]
+    rows += [(_LABELS[k], a.terms[k], {s.stream: s.samples[k] for s in a.streams}, k) for k in TERMS]
+    for label, n, per, term in rows:
+        cells = [label, str(n), _pct(n, a.expected) if term != "expected" else ""]
+        for s in a.streams:
+            cells += [str(per[s.stream]), f"{s.seconds(term):.3f}"]
+        t.add_row(*cells)
+    return t
+
+
+def _gap_table(a: RunAccount) -> Table:
+    t = Table(title=f"gaps in what arrived live ({len(a.gaps)})", title_justify="left")
+    for col in ("seq", "frames", "board s", "for s", "laptop", "resend", "mirror", "lost",
+                "dropped", "cause"):
+        t.add_column(col, justify="left" if col in ("seq", "cause", "laptop") else "right")
+    for g in a.gaps[:MAX_GAP_ROWS]:
+        start = f"{g.board_start_us / 1e6:.3f}" if g.board_start_us is not None else "-"
+        span = (f"{(g.board_end_us - g.board_start_us) / 1e6:.3f}"
+                if g.board_start_us is not None and g.board_end_us is not None else "-")
+        t.add_row(f"{g.first}-{g.last}", str(g.frames), start, span, _clock(g.laptop_start_ns),
+                  str(g.terms["recovered_resend"]), str(g.terms["recovered_mirror"]),
+                  str(g.terms["lost"]), str(g.terms["dropped_board"]), g.cause)
+    return t
+
+
+def _burst_lines(b: dict[str, Any]) -> list[str]:
+    r57, r11, ts = b["rfc3357"], b["rfc3611"], b["two_state"]
+    return [
+        f"loss periods (RFC 3357): {r57['loss_periods']}, mean length {r57['period_length_mean']:.2f}"
+        f" frames (max {r57['period_length_max']}), mean loss distance {r57['loss_distance_mean']:.1f}",
+        f"bursts (RFC 3611, Gmin {r11['gmin']}): {r11['bursts']}, burst density "
+        f"{r11['burst_density']:.3f}, gap density {r11['gap_density']:.4f}, mean burst "
+        f"{r11['burst_mean_s']:.3f} s, mean gap {r11['gap_mean_s']:.3f} s",
+        f"two-state model: p(arrive -> lose) = {ts['p_good_to_bad']:.4f} +- {ts['p_stderr']:.4f}, "
+        f"r(lose -> arrive) = {ts['r_bad_to_good']:.3f} +- {ts['r_stderr']:.3f}, "
+        f"mean burst {ts['mean_burst_frames']:.2f} frames",
+    ]
+
+
+def _angle_table(angle: dict[str, Any]) -> Table:
+    t = Table(title=f"not received live, by rotor angle ({angle['source']})", title_justify="left")
+    for col in ("degrees", "frames", "not live", "share", ""):
+        t.add_column(col, justify="right" if col not in ("", "degrees") else "left")
+    top = max((b["loss_fraction"] for b in angle["bins"]), default=0.0) or 1.0
+    for b in angle["bins"]:
+        bar = "#" * round(20 * b["loss_fraction"] / top)
+        t.add_row(f"{b['from_deg']:.0f}-{b['to_deg']:.0f}", str(b["frames"]), str(b["lost"]),
+                  f"{100 * b['loss_fraction']:.1f} %", bar)
+    return t
+
+
+def print_report(accounts: Sequence[RunAccount], doc: dict[str, Any], console: Console) -> None:
+    for a in accounts:
+        console.print(_accounting_table(a))
+        extra = (f"side tallies: {a.corrupt} damaged on the link, {a.duplicates} duplicate copies, "
+                 f"{a.out_of_order} out of order")
+        if a.mirror_copies:
+            extra += f", {a.mirror_copies} mirror copies of frames already held"
+        console.print(extra)
+        for line in a.checks:
+            console.print(("closes: " if a.closes else "does NOT close: ") + line)
+        for d in a.discrepancies:
+            console.print(f"[bold]discrepancy:[/bold] {d}")
+        for n in a.notes:
+            console.print(f"note: {n}")
+        if a.gaps:
+            console.print(_gap_table(a))
+            if len(a.gaps) > MAX_GAP_ROWS:
+                console.print(f"... {len(a.gaps) - MAX_GAP_ROWS} more gaps (--json lists all)")
+        for line in _burst_lines(a.burst):
+            console.print(line)
+        if a.angle:
+            console.print(_angle_table(a.angle))
+    console.print(f"missing {doc['frames_missing']} of {doc['frames_expected']} frames "
+                  f"({100 * doc['loss_fraction']:.3f} %), {doc['samples_missing']} of "
+                  f"{doc['samples_expected']} samples; {doc['corrupt_segments']} damaged segments "
+                  f"({doc['corrupt_bytes']} B) in the inputs")
