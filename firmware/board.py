@@ -55,6 +55,7 @@ class Board:
         self.program = Program(c["program"], c["repeat"])
         self.link_timeout_ms = c["link_timeout_ms"]
         self.running = False
+        self.ended = False  # the run sent END: no periodic frames until the next START
         self.started_ms = 0
         self.duration_ms = 0
         self.next_status = now
@@ -84,6 +85,7 @@ class Board:
         self.next_descriptor = ticks_add(now, self.descriptor_every_ms)
         self.sampler.start()
         self.running = True
+        self.ended = False
         self.duration_ms = duration_s * 1000
         self.started_ms = now
         self.program.start(now)
@@ -103,8 +105,10 @@ class Board:
         c.update()
         self._event(wire.EV_COIL, 0)
         self.framer.flush_events()
+        self.status()  # the board's counters as they stand at the end, just before END
         totals = [(s.stream, s.count) for s in self.sampler.streams]
         self.framer.end_now(c.hi, c.lo, reason, totals)
+        self.ended = True
 
     def new_run(self):
         self.framer.run = self.hw.next_run_id()
@@ -194,7 +198,7 @@ class Board:
                 self.link_lost_at = now
             elif self.coil.state and ticks_diff(now, self.link_lost_at) >= self.link_timeout_ms:
                 self._trip(TRIP_LINK)
-        if ticks_diff(now, self.next_status) >= 0:
+        if ticks_diff(now, self.next_status) >= 0 and not self.ended:
             self.next_status = ticks_add(now, self.status_every_ms)
             self.status()
         if self.running and ticks_diff(now, self.next_descriptor) >= 0:

@@ -33,8 +33,8 @@ def handle(board, body):
             _answer(fr, request, opcode, board.start(duration_s, label))
         elif opcode == wire.CMD_STOP:
             _no_more(args, 0)
+            fr.ack_now(request, opcode)  # before END: END is the run's last frame (SPEC)
             board.stop(1)
-            fr.ack_now(request, opcode)
         elif opcode == wire.CMD_SET_CONFIG:
             key, end = wire.get_text(args, 0)
             value, end = wire.get_text(args, end)

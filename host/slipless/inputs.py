@@ -116,7 +116,7 @@ def _capture_pieces(src: Source, on_progress: Callable[[int], None] | None) -> I
                 except ValueError:
                     continue
                 if event in ("connected", "disconnected"):
-                    yield None, Arrival(rec.source)
+                    yield None, Arrival(rec.source, rec.mono_ns, rec.wall_ns)
         if on_progress is not None:
             on_progress(src.size - last)
     src.stats = reader.stats
