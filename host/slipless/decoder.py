@@ -189,7 +189,12 @@ class _Batch:
 
 
 class Decoder:
-    def __init__(self, sink: Sink | None = None) -> None:
+    def __init__(self, sink: Sink | None = None, flush_bytes: int = 0) -> None:
+        """flush_bytes: hand samples to the sink once this many bytes were fed
+        (0: after every feed). A live reader fed one notification at a time
+        sets it higher so the per-batch numpy work is shared by many frames."""
+        self.flush_bytes = flush_bytes
+        self._unflushed = 0
         self.sink: Sink = sink if sink is not None else NullSink()
         self.deframer = FastDeframer()
         self._deframers: dict[int, FastDeframer] = {0: self.deframer}
@@ -257,7 +262,10 @@ class Decoder:
                         continue
             self._damage_now = damage
             self._frame(body, offset)
-        self._flush()
+        self._unflushed += len(data)
+        if self._unflushed >= self.flush_bytes:
+            self._unflushed = 0
+            self._flush()
 
     def _time_samples(self, run: RunState, seq: int, tick: int, size: int,
                       info: StreamInfo) -> None:

@@ -92,7 +92,7 @@ class Recorder:
         self.opts = opts
         self.on_progress = on_progress
         self.sink = _LiveSink()
-        self.decoder = Decoder(self.sink)
+        self.decoder = Decoder(self.sink, flush_bytes=1 << 16)
         self.state = "idle"
         self.progress = Progress()
         self._enc = wire.Encoder(opts.board, 0)

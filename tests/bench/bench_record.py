@@ -30,6 +30,7 @@ from slipless.sim.channel import notifications
 from slipless.transports.bumble_central import BumbleCentral
 
 SECONDS = 20.0  # simulated run length pushed through the link
+REPEATS = 3
 
 
 async def _pair() -> tuple[Device, Device, gatt.Characteristic]:
@@ -122,8 +123,15 @@ async def _record_run(notes: list[bytes], n_frames: int) -> tuple[float, int]:
 def record_figures() -> dict[str, float]:
     frames = [f for _, f in simulate(SimConfig(seconds=SECONDS))]
     notes = list(notifications(frames, wire.MAX_WIRE))
-    sink = asyncio.run(_sink_run(notes))
-    rec, drops = asyncio.run(_record_run(notes, len(frames)))
+    # Best of three, interleaved: both share one machine with other work, and
+    # the best run is the one least disturbed by it.
+    sinks, recs, drops = [], [], 0
+    for _ in range(REPEATS):
+        sinks.append(asyncio.run(_sink_run(notes)))
+        r, d = asyncio.run(_record_run(notes, len(frames)))
+        recs.append(r)
+        drops = max(drops, d)
+    sink, rec = max(sinks), max(recs)
     return {"sink_kBps": round(sink, 1), "record_kBps": round(rec, 1),
             "record_vs_sink": round(rec / sink, 3), "record_host_drops": drops}
 
