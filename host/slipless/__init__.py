@@ -1,3 +1,3 @@
 """slipless: laptop side of the rotor telemetry tools (decode, tables, demo)."""
 
-__version__ = "0.2.0"
+__version__ = "0.3.0"
