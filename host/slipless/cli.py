@@ -8,8 +8,9 @@ from __future__ import annotations
 
 import argparse
 import functools
+import importlib
 import sys
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import NoReturn
 
@@ -72,40 +73,29 @@ def build_parser() -> argparse.ArgumentParser:
     return p
 
 
+# command -> (module, function): each is imported only when it runs
+COMMANDS = {
+    "demo": ("slipless.demo", "run_demo"),
+    "flash": ("slipless.flash", "run_flash"),
+    "align": ("slipless.align_cli", "run_align"),
+    "record": ("slipless.record_cli", "run_record"),
+    "pull": ("slipless.record_cli", "run_pull"),
+    "predict": ("slipless.predict", "run_predict"),
+    "pulses": ("slipless.pulses", "run_pulses"),
+    "loss": ("slipless.loss_cli", "run_loss"),
+}
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
     console = Console(width=None if sys.stdout.isatty() else 110)
     try:
         if args.command == "decode":
             return cmd_decode(args, console)
-        if args.command == "demo":
-            from slipless.demo import run_demo
-
-            return run_demo(args, console)
-        if args.command == "flash":
-            from slipless.flash import run_flash
-
-            return run_flash(args, console)
-        if args.command == "align":
-            from slipless.align_cli import run_align
-
-            return run_align(args, console)
-        if args.command in ("record", "pull"):
-            from slipless.record_cli import run_pull, run_record
-
-            return run_record(args, console) if args.command == "record" else run_pull(args, console)
-        if args.command == "predict":
-            from slipless.predict import run_predict
-
-            return run_predict(args, console)
-        if args.command == "pulses":
-            from slipless.pulses import run_pulses
-
-            return run_pulses(args, console)
-        if args.command == "loss":
-            from slipless.loss_cli import run_loss
-
-            return run_loss(args, console)
+        module, func = COMMANDS[args.command]
+        run: Callable[[argparse.Namespace, Console], int] = getattr(
+            importlib.import_module(module), func)  # lazily: decoding needs none of them
+        return run(args, console)
     except SliplessError as exc:
         print(f"slipless: error: {exc}", file=sys.stderr)
         return EXIT_INPUT

@@ -14,17 +14,13 @@ import time
 from pathlib import Path
 
 from bumble import gatt
-from bumble.controller import Controller
 from bumble.core import UUID
 from bumble.device import Device, Peer
-from bumble.hci import Address
-from bumble.host import Host
-from bumble.link import LocalLink
-from bumble.transport.common import AsyncPipeSink
 
 from slipless.capture import CaptureWriter
 from slipless.protocol import wire
 from slipless.record import Recorder, RecordOptions
+from slipless.sim.ble_board import virtual_pair
 from slipless.sim.board import SimConfig, simulate
 from slipless.sim.channel import notifications
 from slipless.transports.bumble_central import BumbleCentral
@@ -34,12 +30,7 @@ REPEATS = 3
 
 
 async def _pair() -> tuple[Device, Device, gatt.Characteristic]:
-    link = LocalLink()
-    devs = []
-    for i, addr in enumerate(("F0:F0:F0:F0:F0:F0", "F1:F1:F1:F1:F1:F1")):
-        ctrl = Controller(f"C{i}", link=link, public_address=addr)
-        devs.append(Device(address=Address(addr), host=Host(ctrl, AsyncPipeSink(ctrl))))
-    central, periph = devs
+    central, periph = virtual_pair()
     data = gatt.Characteristic(UUID(wire.DATA_UUID), gatt.Characteristic.Properties.NOTIFY,
                                gatt.Characteristic.READABLE, b"")
     cmd = gatt.Characteristic(UUID(wire.COMMAND_UUID),

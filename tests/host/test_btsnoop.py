@@ -17,16 +17,11 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import pytest
-from bumble.controller import Controller
 from bumble.core import UUID
 from bumble.device import Device, Peer
 from bumble.gatt import Characteristic, CharacteristicValue, Service
 from bumble.gatt_client import CharacteristicProxy
-from bumble.hci import Address
-from bumble.host import Host
-from bumble.link import LocalLink
 from bumble.snoop import BtSnooper
-from bumble.transport.common import AsyncPipeSink
 
 from slipless import btsnoop, capture
 from slipless.btsnoop import BtsnoopReport, btsnoop_pieces
@@ -34,6 +29,7 @@ from slipless.cli import decode_files
 from slipless.errors import InputError
 from slipless.inputs import TX_SOURCE_BASE
 from slipless.protocol import wire
+from slipless.sim.ble_board import virtual_pair
 from slipless.sim.board import SimConfig, simulate
 from slipless.sim.channel import notifications
 
@@ -378,13 +374,7 @@ class Session:
     commands: list[bytes]  # what the board's command characteristic got
 
 
-def _devices() -> tuple[Device, Device]:
-    link = LocalLink()
-    devices = []
-    for i, addr in enumerate(("F0:F0:F0:F0:F0:F0", "F1:F1:F1:F1:F1:F1")):
-        ctrl = Controller(f"C{i}", link=link, public_address=addr)
-        devices.append(Device(address=Address(addr), host=Host(ctrl, AsyncPipeSink(ctrl))))
-    return devices[0], devices[1]
+_devices = virtual_pair
 
 
 def _board_service(board: Device, commands: list[bytes]) -> Characteristic:

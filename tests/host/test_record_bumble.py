@@ -11,12 +11,6 @@ import json
 from pathlib import Path
 
 import pytest
-from bumble.controller import Controller
-from bumble.device import Device
-from bumble.hci import Address
-from bumble.host import Host
-from bumble.link import LocalLink
-from bumble.transport.common import AsyncPipeSink
 
 from slipless import capture
 from slipless.cli import decode_files
@@ -37,39 +31,17 @@ CONFIG = {
 SIM_STEP_US = 1000  # simulated time per board loop turn: the board runs faster than real time
 
 
-def make_devices() -> tuple[Device, Device]:
-    link = LocalLink()
-    devices = []
-    for i, addr in enumerate(("F0:F0:F0:F0:F0:F0", "F1:F1:F1:F1:F1:F1")):
-        ctrl = Controller(f"C{i}", link=link, public_address=addr)
-        devices.append(Device(address=Address(addr), host=Host(ctrl, AsyncPipeSink(ctrl))))
-    return devices[0], devices[1]
+make_devices = ble_board.virtual_pair
 
 
 async def session(tmp: Path, cut_after_s: float, outage_s: float) -> dict:
-    ble_board.firmware_on_path()
-    import config as fw_config
-    from board import Board
-    from link import Link
-    from simhw import SimHW
-
     laptop_dev, board_dev = make_devices()
     await laptop_dev.power_on()
     await board_dev.power_on()
-    hw = SimHW()
     produced: list[bytes] = []  # every frame the board built: its truth, and its "mirror"
-    hw.on_frame = lambda slot, n: produced.append(bytes(slot[:n]))
-    board = Board(fw_config.validate(CONFIG), hw, hw.next_run_id())
-    bt = ble_board.BluetoothModule(board_dev)
-    board.link = Link(bt.BLE(), bt, CONFIG["name"], board.ring, board.command_bytes)
-
+    vb = ble_board.VirtualBoard(board_dev, CONFIG,
+                                on_frame=lambda slot, n: produced.append(bytes(slot[:n])))
     stop = asyncio.Event()
-
-    async def board_loop() -> None:
-        while not stop.is_set():
-            hw.advance(SIM_STEP_US)
-            board.poll()
-            await asyncio.sleep(0.0005)
 
     writer = capture.CaptureWriter(tmp / "run.slcap", {"backend": "bumble", "sources": [{}]})
     central = BumbleCentral(laptop_dev, None, scan_s=5)
@@ -83,19 +55,18 @@ async def session(tmp: Path, cut_after_s: float, outage_s: float) -> dict:
         # While the link is down the board goes on sampling: 3 s of board time at
         # once, so the outage outlasts the ring by a known margin.
         for _ in range(3000):
-            hw.advance(SIM_STEP_US)
-            board.poll()
+            vb.step(SIM_STEP_US)
 
-    board_task = asyncio.create_task(board_loop())
+    board_task = asyncio.create_task(vb.run(stop, SIM_STEP_US))
     cut_task = asyncio.create_task(cut())
     progress = await rec.run()
     stop.set()
     await board_task
     cut_task.cancel()
     writer.close()
-    bt.BLE().close()
+    vb.close()
     (tmp / "mirror.bin").write_bytes(b"".join(produced))
-    return {"progress": progress, "produced": produced, "refused": bt.BLE().refused,
+    return {"progress": progress, "produced": produced, "refused": vb.bt.BLE().refused,
             "commands": rec.commands_sent}
 
 
@@ -132,37 +103,14 @@ async def test_record_with_cut_link_then_merge_mirror(tmp_path: Path) -> None:
 
 
 async def pull_session(tmp: Path) -> None:
-    ble_board.firmware_on_path()
-    import config as fw_config
-    from board import Board
-    from link import Link
-    from mirror import Mirror
-    from simhw import SimHW
-
     laptop_dev, board_dev = make_devices()
     await laptop_dev.power_on()
     await board_dev.power_on()
-    hw = SimHW()
     assert Path.cwd() == tmp  # board paths are short (64 bytes at most): the mirror is relative
-    cfg = fw_config.validate(dict(CONFIG, mirror={"enabled": True, "path": "board.mirror",
-                                                  "max_bytes": 1 << 20, "flush_every_ms": 100}))
-    m = cfg["mirror"]
-    mirror = Mirror(m["path"], m["max_bytes"], m["flush_every_ms"], hw.ticks_ms())
-    hw.on_frame = mirror.write
-    board = Board(cfg, hw, hw.next_run_id())
-    board.mirror = mirror
-    bt = ble_board.BluetoothModule(board_dev)
-    board.link = Link(bt.BLE(), bt, CONFIG["name"], board.ring, board.command_bytes)
+    vb = ble_board.VirtualBoard(board_dev, dict(CONFIG, mirror={
+        "enabled": True, "path": "board.mirror", "max_bytes": 1 << 20, "flush_every_ms": 100}))
     stop = asyncio.Event()
-
-    async def board_loop() -> None:
-        while not stop.is_set():
-            hw.advance(SIM_STEP_US)
-            board.poll()
-            mirror.poll(hw.ticks_ms())
-            await asyncio.sleep(0.0005)
-
-    task = asyncio.create_task(board_loop())
+    task = asyncio.create_task(vb.run(stop, SIM_STEP_US))
     w1 = capture.CaptureWriter(tmp / "run.slcap", {})
     await Recorder(BumbleCentral(laptop_dev, None), w1,
                    RecordOptions(duration_s=1.5, ping_every_s=0.5)).run()
@@ -175,8 +123,7 @@ async def pull_session(tmp: Path) -> None:
                     w2, tmp / "pulled.mirror")
     stop.set()
     await task
-    bt.BLE().close()
-    mirror.flush()
+    vb.close()
 
 
 @pytest.mark.asyncio

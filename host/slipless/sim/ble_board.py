@@ -19,8 +19,13 @@ from pathlib import Path
 from typing import Any
 
 from bumble import gatt
+from bumble.controller import Controller
 from bumble.core import UUID as BumbleUUID
 from bumble.device import Connection, Device
+from bumble.hci import Address
+from bumble.host import Host
+from bumble.link import LocalLink
+from bumble.transport.common import AsyncPipeSink
 
 _IRQ_CENTRAL_CONNECT = 1
 _IRQ_CENTRAL_DISCONNECT = 2
@@ -30,6 +35,17 @@ QUEUE = 8  # notifications the "controller" holds before refusing more
 
 FIRMWARE = Path(__file__).resolve().parents[3] / "firmware"
 PROTOCOL = Path(__file__).resolve().parents[3] / "protocol"
+
+
+def virtual_pair() -> tuple[Device, Device]:
+    """Two bumble Devices (laptop, board) on software controllers joined by
+    bumble's in-process link: real HCI, L2CAP, ATT and GATT, no radio."""
+    link = LocalLink()
+    devices = []
+    for i, addr in enumerate(("F0:F0:F0:F0:F0:F0", "F1:F1:F1:F1:F1:F1")):
+        ctrl = Controller(f"C{i}", link=link, public_address=addr)
+        devices.append(Device(address=Address(addr), host=Host(ctrl, AsyncPipeSink(ctrl))))
+    return devices[0], devices[1]
 
 
 def firmware_on_path() -> None:
@@ -170,3 +186,52 @@ class BluetoothModule:
 
     def BLE(self) -> BLE:  # noqa: N802 - MicroPython's name
         return self._ble
+
+
+class VirtualBoard:
+    """The board's firmware (board.py, link.py, mirror.py) on the simulated
+    hardware layer, radioing through a bumble Device: the rotor side of
+    end-to-end tests. Board time moves only in step()."""
+
+    def __init__(self, device: Device, config: dict[str, Any],
+                 on_frame: Callable[[Any, int], None] | None = None) -> None:
+        firmware_on_path()
+        import config as fw_config
+        from board import Board
+        from link import Link
+        from simhw import SimHW
+
+        cfg = fw_config.validate(config)
+        self.hw = SimHW()
+        self.mirror = None
+        if cfg["mirror"]["enabled"]:
+            from mirror import Mirror
+
+            m = cfg["mirror"]
+            self.mirror = Mirror(m["path"], m["max_bytes"], m["flush_every_ms"],
+                                 self.hw.ticks_ms())
+            self.hw.on_frame = self.mirror.write
+        if on_frame is not None:
+            self.hw.on_frame = on_frame
+        self.board = Board(cfg, self.hw, self.hw.next_run_id())
+        self.board.mirror = self.mirror
+        self.bt = BluetoothModule(device)
+        self.board.link = Link(self.bt.BLE(), self.bt, cfg["name"], self.board.ring,
+                               self.board.command_bytes)
+
+    def step(self, us: int) -> None:
+        self.hw.advance(us)
+        self.board.poll()
+        if self.mirror is not None:
+            self.mirror.poll(self.hw.ticks_ms())
+
+    async def run(self, stop: asyncio.Event, step_us: int, pause_s: float = 0.0005) -> None:
+        """Turn the main loop until stop is set, yielding to the link between turns."""
+        while not stop.is_set():
+            self.step(step_us)
+            await asyncio.sleep(pause_s)
+
+    def close(self) -> None:
+        self.bt.BLE().close()
+        if self.mirror is not None:
+            self.mirror.flush()
