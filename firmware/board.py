@@ -9,6 +9,7 @@ a few notifications, so nothing here can stall sampling for long.
 
 import json
 
+import auth as auth_mod
 import commands
 import config as config_mod
 from coil import TRIP_ERROR, TRIP_LINK, Coil, Program
@@ -67,6 +68,11 @@ class Board:
         self.link = None
         self.mirror = None  # mirror.Mirror when the config enables it (main.py)
         self.config_error = None
+        # Key set: state-changing commands must be authenticated (commands.py). The
+        # counter file lives on flash; hw.auth_path None (simulations) keeps it in RAM.
+        key = link_cfg["key_hex"]
+        self.auth = (auth_mod.Auth(auth_mod.unhex(key), getattr(hw, "auth_path", "/auth.ctr"))
+                     if key else None)
 
     @property
     def run_id(self):

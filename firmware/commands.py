@@ -3,9 +3,16 @@
 Each COMMAND frame gets exactly one ACK or ERROR (a PING gets a SYNC; a RESEND
 gets its frames plus an ACK, or an ERROR naming what the ring no longer holds).
 A bad command changes nothing. Commands are rare, so this module may allocate.
+
+A board with a key (config link.key_hex) runs the state-changing opcodes
+(wire.GUARDED: start, stop, set_config, pull) only when authenticated
+(opcode | AUTH_FLAG, trailer checked by auth.py); ping, status and resend may
+come either way. Anything refused gets ERROR auth and changes nothing.
 """
 
 import struct
+
+import auth
 
 import wire
 
@@ -23,8 +30,23 @@ def handle(board, body):
     if target != 0xFFFF and target != board.board_id:
         return  # addressed to another board on the same link
     opcode, request = struct.unpack_from(wire.COMMAND_FIXED, body, wire.HEADER_SIZE)
-    args = body[wire.HEADER_SIZE + wire.COMMAND_FIXED_SIZE :]
     fr = board.framer
+    end = len(body)
+    guard = board.auth
+    if opcode & wire.AUTH_FLAG:
+        opcode &= ~wire.AUTH_FLAG
+        if guard is None:
+            fr.error_now(request, opcode, wire.ERR_AUTH, 0, auth.WHY_NO_KEY)
+            return
+        end -= wire.AUTH_TRAILER_SIZE
+        why = guard.check(body) if end >= wire.HEADER_SIZE + wire.COMMAND_FIXED_SIZE else auth.WHY_MISSING
+        if why:
+            fr.error_now(request, opcode, wire.ERR_AUTH, guard.last, why)
+            return
+    elif guard is not None and opcode in wire.GUARDED:
+        fr.error_now(request, opcode, wire.ERR_AUTH, guard.last, auth.WHY_MISSING)
+        return
+    args = body[wire.HEADER_SIZE + wire.COMMAND_FIXED_SIZE : end]
     try:
         if opcode == wire.CMD_START:
             duration_s = struct.unpack_from(wire.START_ARGS, args, 0)[0]

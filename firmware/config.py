@@ -47,6 +47,14 @@ class ConfigError(ValueError):
     """A config that cannot be used; the message names the field and the rule."""
 
 
+def _shown(name):
+    """A user's key as it may appear in a one-line message (repr if not plain)."""
+    for ch in name:
+        if not " " <= ch <= "~":
+            return repr(name)
+    return name
+
+
 def _need(cond, where, rule):
     if not cond:
         raise ConfigError(where + ": " + rule)
@@ -70,7 +78,12 @@ def _text(d, key, where, max_len=32, empty=False):
     v = d.get(key)
     _need(isinstance(v, str), where + "." + key, "must be text")
     _need(empty or len(v) > 0, where + "." + key, "must not be empty")
-    _need(len(v.encode()) <= max_len, where + "." + key, "must be at most %d bytes" % max_len)
+    try:
+        n = len(v.encode())
+    except UnicodeError:  # a lone surrogate (a JSON "\ud800" escape) has no UTF-8 form
+        n = -1
+    _need(n >= 0, where + "." + key, "must be valid Unicode text")
+    _need(n <= max_len, where + "." + key, "must be at most %d bytes" % max_len)
     return v
 
 
@@ -78,7 +91,7 @@ def _merge(defaults, given, where):
     _need(isinstance(given, dict), where, "must be an object")
     out = {}
     for k in given:
-        _need(k in defaults, where + "." + k, "is not a known setting")
+        _need(k in defaults, where + "." + _shown(k), "is not a known setting")
     for k, v in defaults.items():
         if isinstance(v, dict):
             out[k] = _merge(v, given.get(k, {}), where + "." + k)
@@ -102,7 +115,7 @@ def validate(given):
         _need(isinstance(s, dict), w, "must be an object")
         for k in s:
             _need(k in ("id", "name", "unit", "source", "rate_hz", "type", "scale", "offset", "state"),
-                  w + "." + k, "is not a known setting")
+                  w + "." + _shown(k), "is not a known setting")
         sid = _int(s, "id", w, 0, 255)
         _need(sid not in seen, w + ".id", "is used twice")
         seen.append(sid)
@@ -168,6 +181,8 @@ def parse(text):
         given = json.loads(text)
     except ValueError:
         raise ConfigError("config: not valid JSON") from None
+    except RuntimeError:  # nesting deeper than the parser's recursion limit
+        raise ConfigError("config: nested too deeply") from None
     return validate(given)
 
 

@@ -54,6 +54,7 @@ class SimHW:
         self.saved = None
         self.fed = 0
         self.fail = None  # set to a channel name to make its reads raise
+        self.auth_path = None  # command counter kept in RAM (a real board keeps it on flash)
 
     def ticks_us(self):
         return self._us

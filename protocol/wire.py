@@ -48,6 +48,11 @@ CMD_STATUS = const(6)
 CMD_PULL = const(7)  # stream the board's file mirror over the link
 COMMAND_NAMES = {1: "start", 2: "stop", 3: "set_config", 4: "ping", 5: "resend", 6: "status",
                  7: "pull"}
+# Opcode bit: the arguments end with u32 counter + 32-byte HMAC-SHA256 tag (SPEC 3.9.1).
+AUTH_FLAG = const(0x80)
+AUTH_TRAILER_SIZE = const(36)
+# Opcodes a board with a key runs only when authenticated (they change its state).
+GUARDED = (1, 2, 3, 7)  # start, stop, set_config, pull
 
 # Error codes carried by ERROR frames.
 ERR_BAD_COMMAND = const(1)
@@ -56,8 +61,10 @@ ERR_NOT_HELD = const(3)  # resend range no longer in the board's ring: detail = 
 ERR_BUSY = const(4)
 ERR_REFUSED = const(5)  # refused for safety (coil limits, no run)
 ERR_NO_MIRROR = const(6)  # PULL: the board keeps no file mirror
+ERR_AUTH = const(7)  # not authenticated: detail_a = last counter accepted, detail_b = why
 ERROR_NAMES = {1: "bad_command", 2: "bad_argument", 3: "not_held", 4: "busy", 5: "refused",
-               6: "no_mirror"}
+               6: "no_mirror", 7: "auth"}
+AUTH_WHY_NAMES = {1: "missing", 2: "bad_tag", 3: "old_counter", 4: "no_key", 5: "store_failed"}
 
 # Event codes carried by EVENTS frames.
 EV_COIL = const(1)  # value: coil polarity now -1, 0 or +1

@@ -115,9 +115,11 @@ def read_header(f: BinaryIO) -> dict[str, Any]:
     if len(raw) < n or zlib.crc32(raw) != crc:
         raise CaptureError("capture header is damaged")
     try:
-        meta: dict[str, Any] = json.loads(raw)
-    except ValueError as exc:
+        meta = json.loads(raw)
+    except (ValueError, RecursionError) as exc:
         raise CaptureError("capture header is not JSON") from exc
+    if not isinstance(meta, dict):
+        raise CaptureError("capture header is not a JSON object")
     return meta
 
 

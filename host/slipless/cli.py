@@ -70,6 +70,9 @@ def build_parser() -> argparse.ArgumentParser:
     from slipless.align_cli import add_parser as add_align_parser
 
     add_align_parser(sub)
+    from slipless.report_cli import add_parser as add_report_parser
+
+    add_report_parser(sub)
     return p
 
 
@@ -83,6 +86,7 @@ COMMANDS = {
     "predict": ("slipless.predict", "run_predict"),
     "pulses": ("slipless.pulses", "run_pulses"),
     "loss": ("slipless.loss_cli", "run_loss"),
+    "report": ("slipless.report_cli", "run_report"),
 }
 
 

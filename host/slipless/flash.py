@@ -100,7 +100,7 @@ def known_profiles(fw: Path) -> list[str]:
 
 def load_profile(fw: Path, name: str) -> dict:
     path = fw / "profiles" / f"{name}.json"
-    if not path.is_file():
+    if "/" in name or "\\" in name or name.startswith(".") or not path.is_file():
         raise InputError(f"unknown board profile {name!r} (known: {', '.join(known_profiles(fw))})")
     try:
         prof = json.loads(path.read_text(encoding="utf-8"))
@@ -401,9 +401,27 @@ def show_cautions_once(console: Console) -> None:
         pass  # cannot remember: show them again next time, which is harmless
 
 
+def ensure_key(config: dict, write: bool) -> Path:
+    """Give the board a key (config link.key_hex) and keep the laptop's copy.
+
+    A config without a key gets a new random one at every flash (so commands
+    recorded before survive neither a reflash nor an erased counter file); the
+    copy goes to a file only the user can read. Returns the key file's path."""
+    from slipless import keys
+
+    link = config["link"]
+    path = keys.key_path(config["board_id"])
+    if not link["key_hex"]:
+        link["key_hex"] = keys.new_key_hex()
+    if write:
+        keys.save_key(config["board_id"], link["key_hex"])
+    return path
+
+
 def run_flash(args: argparse.Namespace, console: Console) -> int:
     fw = firmware_dir()
     config, profile = resolve_config(fw, args.config, args.board)
+    key_file = ensure_key(config, write=not args.dry_run)  # saved before the board gets it
     if not args.dry_run:
         check_port(args.port)
     with tempfile.TemporaryDirectory(prefix="slipless-flash-") as tmp:
@@ -430,6 +448,7 @@ def run_flash(args: argparse.Namespace, console: Console) -> int:
         verify(board, plan)
     show_plan(plan, console, f"flashed {profile['name']} on {args.port}: {len(plan)} files, "
               f"{total:,} bytes, all sha256 verified")
+    console.print(f"board key: {key_file} (readable only by you; `slipless record` uses it)")
     if any(it.dest == "/main.py" for it in plan):
         console.print("Reset or power-cycle the board to start the new firmware.")
     else:

@@ -112,9 +112,10 @@ def _capture_pieces(src: Source, on_progress: Callable[[int], None] | None) -> I
                                            "radio")
             elif rec.type == capture.EVENT:
                 try:
-                    event = json.loads(rec.payload).get("event")
-                except ValueError:
+                    fields = json.loads(rec.payload)
+                except (ValueError, RecursionError):
                     continue
+                event = fields.get("event") if isinstance(fields, dict) else None
                 if event in ("connected", "disconnected"):
                     yield None, Arrival(rec.source, rec.mono_ns, rec.wall_ns)
         if on_progress is not None:

@@ -222,7 +222,7 @@ def link_down(path: Path) -> list[LinkDown]:
                 continue
             try:
                 name = json.loads(rec.payload).get("event")
-            except (ValueError, AttributeError):
+            except (ValueError, AttributeError, RecursionError):
                 continue
             if name == "disconnected":
                 open_at.setdefault(rec.source, rec.mono_ns)

@@ -10,6 +10,7 @@ The state is a small table (STATES) so tests can walk it.
 from __future__ import annotations
 
 import asyncio
+import struct
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
@@ -43,6 +44,7 @@ class RecordOptions:
     board: int = 0xFFFF  # command target (0xFFFF: whichever board answers)
     start: bool = True  # send START on the first connection
     pull: bool = False  # instead: ask for the board's file mirror and end when it has come
+    signer: Any = None  # keys.Signer: seals start/stop/set_config/pull (None: sent unsealed)
 
 
 class _LiveSink(NullSink):
@@ -54,6 +56,7 @@ class _LiveSink(NullSink):
         self.not_held: set[tuple[int, int, int]] = set()  # (board, run, seq) the board lost
         self.last_error = ""
         self.pulled = False  # the ACK that follows the last byte of a pulled mirror
+        self.refused: list[tuple[int, int, int]] = []  # ERROR auth: (opcode, floor, why)
 
     def status(self, run: RunState, seq: int, fields: dict[str, Any]) -> None:
         self.battery_mv = fields["battery_mv"]
@@ -64,6 +67,8 @@ class _LiveSink(NullSink):
         elif kind == wire.ACK and fields["opcode"] == wire.CMD_PULL:
             self.pulled = True
         elif kind == wire.ERROR:
+            if fields["code"] == wire.ERR_AUTH:
+                self.refused.append((fields["opcode"], fields["detail_a"], fields["detail_b"]))
             if fields["code"] == wire.ERR_NOT_HELD:
                 for seq in range(fields["detail_a"], fields["detail_b"] + 1):
                     self.not_held.add((run.board, run.run, seq))
@@ -102,6 +107,8 @@ class Recorder:
         self._requested: dict[tuple[int, int, int], float] = {}  # (board, run, first) -> time sent
         self._started = False
         self.commands_sent = 0
+        self._sealed: dict[int, bytes] = {}  # opcode -> args of the last sealed command
+        self.auth_error = ""  # why the board refused a sealed command (not retryable)
 
     # ---- state -------------------------------------------------------------------
     def _move(self, new: str) -> None:
@@ -135,6 +142,29 @@ class Recorder:
         self._request = (self._request + 1) & 0xFFFF
         return self._request
 
+    def _guarded(self, opcode: int, args: bytes = b"") -> int:
+        """A state-changing command: sealed with the board key when there is one."""
+        if self.opts.signer is None:
+            return self._enc.command(opcode, self._next_request(), args)
+        self._sealed[opcode] = args
+        return int(self.opts.signer.command(self._enc, opcode, self._next_request(), args))
+
+    async def _after_refusals(self) -> None:
+        """ERROR auth old_counter (the board rebooted past its counter reserve): jump
+        past the floor it names and send once more; any other refusal ends the run."""
+        while self.sink.refused:
+            opcode, floor, why = self.sink.refused.pop(0)
+            args = self._sealed.pop(opcode, None)
+            if (wire.AUTH_WHY_NAMES.get(why) == "old_counter" and args is not None
+                    and self.opts.signer is not None):
+                self.opts.signer.skip_to(floor)
+                await self._send(self._guarded(opcode, args))
+                self._sealed.pop(opcode, None)  # once only
+            else:
+                self.auth_error = (f"{wire.COMMAND_NAMES.get(opcode, opcode)}: "
+                                   f"{wire.AUTH_WHY_NAMES.get(why, why)}")
+                self._stop.set()
+
     # ---- the run -----------------------------------------------------------------------
     async def run(self) -> Progress:
         deadline = time.monotonic() + self.opts.duration_s if self.opts.duration_s else None
@@ -155,10 +185,12 @@ class Recorder:
             self.capture.event(0, "connected", mtu=self.central.mtu, address=self.central.address)
             self._move("live")
             if self.opts.pull and not self._started:
-                await self._send(self._enc.command(wire.CMD_PULL, self._next_request()))
+                await self._send(self._guarded(wire.CMD_PULL))
             elif self.opts.start and not self._started:
-                await self._send(self._enc.start(self._next_request(), int(self.opts.duration_s),
-                                                 self.opts.label))
+                label = self.opts.label.encode()
+                await self._send(self._guarded(
+                    wire.CMD_START, struct.pack(wire.START_ARGS, int(self.opts.duration_s))
+                    + bytes([len(label)]) + label))
             self._started = True
             await self._live(deadline)
             if (self._stop.is_set() or self.sink.ended or self.sink.pulled
@@ -198,6 +230,7 @@ class Recorder:
             if now >= next_resend:
                 next_resend = now + self.opts.resend_every_s
                 await self._request_resends(now)
+            await self._after_refusals()
             self._update()
             try:
                 await asyncio.wait_for(self._dropped.wait(), 0.05)
@@ -230,12 +263,14 @@ class Recorder:
             await self.central.disconnect()
             return
         try:
-            await self._send(self._enc.command(wire.CMD_STOP, self._next_request()))
+            await self._send(self._guarded(wire.CMD_STOP))
         except LinkError:
             return
         end = time.monotonic() + self.opts.drain_s
         while time.monotonic() < end:
             await self._request_resends(time.monotonic())
+            if self.opts.signer is not None and self.sink.refused:
+                await self._after_refusals()
             if self.sink.ended and not any(r.gaps for r in self.decoder.runs.values()):
                 break
             await asyncio.sleep(0.05)

@@ -47,6 +47,7 @@ def add_parsers(sub: Any) -> None:
                    help="only listen: do not send START (the coil stays as it is)")
     r.add_argument("--sync-every", type=float, default=1.0, metavar="S",
                    help="flush and fsync the capture every S seconds (default 1)")
+    _add_key_options(r)
 
     p = sub.add_parser("pull", help="copy the board's file mirror to the laptop (USB or BLE)")
     how = p.add_mutually_exclusive_group(required=True)
@@ -57,6 +58,31 @@ def add_parsers(sub: Any) -> None:
     p.add_argument("--backend", choices=BACKENDS, default="bleak")
     p.add_argument("--transport", default="usb:0", help="bumble transport spec")
     p.add_argument("--out", type=Path, required=True, metavar="FILE", help="where to write it")
+    _add_key_options(p)
+
+
+def _add_key_options(p: Any) -> None:
+    p.add_argument("--key", type=Path, metavar="FILE",
+                   help="board key written by `slipless flash` (default: the only one held)")
+    p.add_argument("--insecure", action="store_true",
+                   help="send start/stop/pull without a key (a board with a key refuses them)")
+
+
+def signer_for(args: argparse.Namespace, console: Console) -> Any:
+    """keys.Signer for --key (or the only key held); None with --insecure and no key."""
+    from slipless import keys
+
+    path = keys.find_key(args.key)
+    if path is None:
+        if not args.insecure:
+            raise InputError("no board key on this laptop: flash the board with `slipless flash` "
+                             "(it writes one), give --key FILE, or send unauthenticated commands "
+                             "with --insecure")
+        console.print("warning: --insecure: commands go without a key; anyone in radio range "
+                      "can send them too, and a board flashed with a key refuses them",
+                      style="bold yellow")
+        return None
+    return keys.Signer(keys.load_key(path), keys.counter_path_for(path))
 
 
 def _central(args: argparse.Namespace) -> tuple[Any, Any]:
@@ -82,7 +108,7 @@ def _central(args: argparse.Namespace) -> tuple[Any, Any]:
     return None, make
 
 
-async def _pull_link(args: argparse.Namespace, console: Console) -> int:
+async def _pull_link(args: argparse.Namespace, console: Console, signer: Any = None) -> int:
     """PULL over BLE: what arrives is frames; the file written is a mirror file."""
     central, make = _central(args)
     transport = None
@@ -90,7 +116,8 @@ async def _pull_link(args: argparse.Namespace, console: Console) -> int:
         central, transport = await make()
     with tempfile.TemporaryDirectory() as tmp:
         writer = CaptureWriter(Path(tmp) / "pull.slcap", {"backend": args.backend})
-        rec = Recorder(central, writer, RecordOptions(pull=True, ping_every_s=3600))
+        rec = Recorder(central, writer, RecordOptions(pull=True, ping_every_s=3600,
+                                                      signer=signer))
         try:
             await pull_into(rec, writer, args.out)
         except LinkError as exc:
@@ -98,8 +125,8 @@ async def _pull_link(args: argparse.Namespace, console: Console) -> int:
         finally:
             if transport is not None:
                 await transport.close()
-    if rec.sink.last_error:
-        raise InputError(f"the board refused the pull: {rec.sink.last_error}")
+    if rec.auth_error or rec.sink.last_error:
+        raise InputError(f"the board refused the pull: {rec.auth_error or rec.sink.last_error}")
     console.print(f"{args.out.stat().st_size:,} bytes of mirror written to {args.out}; merge it "
                   f"with: slipless decode CAPTURE --mirror {args.out} --out DIR")
     return 0
@@ -132,12 +159,13 @@ def run_record(args: argparse.Namespace, console: Console) -> int:
         raise InputError("--label: at most 32 bytes")
     if args.out.exists() and args.out.is_dir():
         raise InputError(f"{args.out}: is a directory, expected a capture file name")
+    signer = signer_for(args, console)  # before any file is written: no key, no capture
     if not args.no_start:
         console.print(RUN_CAUTION, style="bold")
-    return asyncio.run(_record(args, console))
+    return asyncio.run(_record(args, console, signer))
 
 
-async def _record(args: argparse.Namespace, console: Console) -> int:
+async def _record(args: argparse.Namespace, console: Console, signer: Any = None) -> int:
     central, make = _central(args)
     transport = None
     if make is not None:
@@ -154,7 +182,8 @@ async def _record(args: argparse.Namespace, console: Console) -> int:
     except OSError as exc:
         raise InputError(f"{args.out}: cannot write ({exc.strerror})") from exc
     opts = RecordOptions(duration_s=args.duration, label=args.label,
-                         ping_every_s=args.ping_every, start=not args.no_start)
+                         ping_every_s=args.ping_every, start=not args.no_start,
+                         signer=signer)
     started = time.monotonic()
     with Live(console=console, auto_refresh=False, transient=False) as live:
         rec = Recorder(central, writer, opts,
@@ -172,6 +201,9 @@ async def _record(args: argparse.Namespace, console: Console) -> int:
                 await transport.close()
     console.print(f"capture written to {args.out} ({writer.records:,} records, "
                   f"{writer.bytes:,} bytes); decode it with: slipless decode {args.out} --out DIR")
+    if rec.auth_error:
+        raise InputError(f"the board refused a command ({rec.auth_error}): check the key "
+                         "(--key) matches the one flashed")
     if progress.lost_ranges:
         lost = ", ".join(f"{a}-{b}" for a, b in progress.lost_ranges)
         console.print(f"the board no longer held frames {lost}: pull its mirror to recover them "
@@ -181,7 +213,7 @@ async def _record(args: argparse.Namespace, console: Console) -> int:
 
 def run_pull(args: argparse.Namespace, console: Console) -> int:
     if args.link:
-        return asyncio.run(_pull_link(args, console))
+        return asyncio.run(_pull_link(args, console, signer_for(args, console)))
     from slipless.flash import Board, FlashError, check_port
 
     check_port(args.port)

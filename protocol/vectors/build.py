@@ -162,6 +162,25 @@ def cases():
     yield ("state-stream", "a state channel (coil polarity) flagged for hold-last-value",
            [desc(1, 7, 0, [stream(4, b_, 10_000, 1.0, 0.0, "coil_state", "", wire.FLAG_STATE)]),
             samples(1, 7, 4, 0, b_, [0, 1, 1, 0, -1])], [])
+    yield ("authenticated-commands",
+           "sealed start and stop (SPEC 3.9.1), key = bytes 0x00..0x1f, counters 1 and 2",
+           [sealed(0, wire.CMD_START, 1, struct.pack("<I", 60) + b"\x02ab", 1),
+            sealed(1, wire.CMD_STOP, 2, b"", 2)], [])
+
+
+AUTH_KEY = bytes(range(32))  # the vector's key (common practice: any 32 bytes)
+
+
+def sealed(seq, opcode, request, args, counter):
+    """A COMMAND op whose arguments end with counter + HMAC-SHA256 tag (RFC 2104,
+    computed with CPython's hmac), for the laptop encoder's seq-th frame."""
+    import hmac
+
+    op_ = opcode | wire.AUTH_FLAG
+    msg = (struct.pack(wire.HEADER, (wire.VERSION << 4) | wire.COMMAND, 0xFFFF, 0, seq)
+           + struct.pack(wire.COMMAND_FIXED, op_, request) + args + struct.pack("<I", counter))
+    tail = (msg + hmac.new(AUTH_KEY, msg, "sha256").digest())[wire.HEADER_SIZE + 3 :]
+    return op(0xFFFF, 0, "command", opcode=op_, request=request, args=tail.hex())
 
 
 # ---- damage ---------------------------------------------------------------------
@@ -235,7 +254,8 @@ def expected(case_ops, frames, lost, damaged, damage):
         key = (o["board"], o["run"])
         if i in lost:
             continue
-        if o["op"] in ("start", "stop", "set_config", "ping", "resend", "status_request"):
+        if o["op"] in ("start", "stop", "set_config", "ping", "resend", "status_request",
+                       "command"):
             exp["counters"]["commands"] += 1
             continue
         if o["op"] == "raw" and o["args"]["version"] != wire.VERSION:

@@ -56,6 +56,8 @@ def _one(enc, op):
         n = enc.ping(a["request"], a["host_ns"])
     elif name == "resend":
         n = enc.resend(a["request"], a["first"], a["last"])
+    elif name == "command":  # any opcode with its argument bytes (sealed commands)
+        n = enc.command(a["opcode"], a["request"], bytes.fromhex(a["args"]))
     elif name == "raw":  # a frame of another version or kind, for forward-compatibility cases
         off = enc.begin(a["kind"])
         enc.body[0] = (a["version"] << 4) | a["kind"]

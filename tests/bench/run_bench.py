@@ -10,6 +10,8 @@ Prints one line per figure, then one JSON line with every figure:
   board_alloc_bytes_per_frame, board_frame_us, board_loop_us   board code on MicroPython
   record_kBps, sink_kBps, record_host_drops   recorder over bumble's virtual link
   align_p99_ms, align_lsq_p99_ms, align_err_over_u, align_seconds_1M   clock fit (bench_align.py)
+  fuzz_cases, fuzz_false_accepts, fuzz_intact_recovered   corrupted frames read (bench_fuzz.py)
+  demo_seconds          wall time of `slipless demo` (bench_demo.py)
 """
 
 from __future__ import annotations
@@ -224,6 +226,12 @@ def main() -> int:
     from bench_align import align_figures
 
     figures.update(align_figures())
+    from bench_demo import demo_figures
+
+    figures.update(demo_figures())
+    from bench_fuzz import run as fuzz_figures  # >= 10 million corrupted frames
+
+    figures.update(fuzz_figures())
     for k, v in figures.items():
         print(f"{k:28s} {v}")
     print(json.dumps(figures, sort_keys=True))

@@ -228,6 +228,11 @@ def test_flash_end_to_end(flashed):
     assert (tmp / "home" / "flashed-before").is_file()
 
     config, profile = flash.resolve_config(FIRMWARE, cfg, "pico-w")
+    key_file = tmp / "home" / "keys" / f"board-{config['board_id']}.key"
+    assert key_file.stat().st_mode & 0o777 == 0o600  # the laptop's copy: only the user reads it
+    assert key_file.parent.stat().st_mode & 0o777 == 0o700
+    config["link"]["key_hex"] = key_file.read_text().strip()  # flash gave the board a new key
+    assert len(config["link"]["key_hex"]) == 64
     plan = flash.build_plan(FIRMWARE, config, profile, tmp)  # same bytes: compiling is deterministic
     code = f"import os\nfor p in {[it.dest for it in plan]!r}:\n    print(p, os.stat(p)[6])"
     sizes = dict(line.split() for line in board.exec(code).splitlines())
@@ -239,9 +244,10 @@ def test_flash_end_to_end(flashed):
 
 
 def test_verify_names_a_changed_file(flashed, tmp_path):
-    board, proc, cfg, _ = flashed
+    board, proc, cfg, tmp = flashed
     assert proc.returncode == 0
     config, profile = flash.resolve_config(FIRMWARE, cfg, "pico-w")
+    config["link"]["key_hex"] = (tmp / "home" / "keys" / "board-1.key").read_text().strip()
     plan = flash.build_plan(FIRMWARE, config, profile, tmp_path)
     flash.verify(flash.Board(board.path), plan)  # as flashed: passes
     board.exec("f = open('/profile.json', 'ab')\nf.write(b' ')\nf.close()")

@@ -22,7 +22,7 @@ under a second).
 from __future__ import annotations
 
 import math
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -231,6 +231,17 @@ def _streams(cfg: RigConfig) -> list[tuple[Any, ...]]:
 def frames(cfg: RigConfig, sig: RigSignals | None = None) -> Iterator[bytes]:
     """The run as the board would send it: descriptor, samples, coil events,
     status, end. Frames are built in sending order (sequence numbers)."""
+    return (f for _, f in timed_frames(cfg, sig))
+
+
+Extra = tuple[int, Callable[[wire.Encoder], int]]  # send tick, body builder (returns its size)
+StatusFields = Callable[[int], tuple[int, int]]  # seq -> (queue_high, dropped)
+
+
+def timed_frames(cfg: RigConfig, sig: RigSignals | None = None, extra: Sequence[Extra] = (),
+                 status: StatusFields | None = None) -> Iterator[tuple[int, bytes]]:
+    """(send tick, frame) of the run in sending order; `extra` frames (e.g. SYNC
+    replies) join at their ticks, `status` sets the queue figures of each STATUS."""
     sig = sig if sig is not None else signals(cfg)
     enc = wire.Encoder(cfg.board, cfg.run)
     streams = _streams(cfg)
@@ -250,21 +261,25 @@ def frames(cfg: RigConfig, sig: RigSignals | None = None) -> Iterator[bytes]:
         jobs.append((int(k * STATUS_EVERY_S * TICK_HZ), 3, ("status",)))
     for k in range(1, int(cfg.seconds / DESCRIPTOR_EVERY_S) + 1):
         jobs.append((int(k * DESCRIPTOR_EVERY_S * TICK_HZ), 4, ("descriptor",)))
+    jobs += [(tick, 5, ("call", build)) for tick, build in extra]
     jobs.sort(key=lambda j: (j[0], j[1]))
-    yield enc.frame(enc.descriptor(0, TICK_HZ, FW, 5000, len(streams), streams))
+    yield 0, enc.frame(enc.descriptor(0, TICK_HZ, FW, 5000, len(streams), streams))
     for tick, _, job in jobs:
         if job[0] == "samples":
             off = enc.begin_samples(job[1], job[2])
             raw = job[3].tobytes()
             enc.body[off : off + len(raw)] = raw
-            yield enc.frame(enc.finish(off + len(raw)))
+            yield tick, enc.frame(enc.finish(off + len(raw)))
         elif job[0] == "events":
-            yield enc.frame(enc.events([(job[1], wire.EV_COIL, job[2])]))
+            yield tick, enc.frame(enc.events([(job[1], wire.EV_COIL, job[2])]))
         elif job[0] == "status":
-            yield enc.frame(enc.status(tick, 3900, 2600, 90_000, 4, 0, 0, 45))
+            queue, dropped = status(enc.seq) if status is not None else (4, 0)
+            yield tick, enc.frame(enc.status(tick, 3900, 2600, 90_000, queue, dropped, 0, 45))
+        elif job[0] == "call":
+            yield tick, enc.frame(job[1](enc))
         else:
-            yield enc.frame(enc.descriptor(tick, TICK_HZ, FW, 5000, len(streams), streams))
-    yield enc.frame(enc.end(end_tick, 2, [(s[0], d.size) for s, d in zip(streams, data)]))
+            yield tick, enc.frame(enc.descriptor(tick, TICK_HZ, FW, 5000, len(streams), streams))
+    yield end_tick, enc.frame(enc.end(end_tick, 2, [(s[0], d.size) for s, d in zip(streams, data)]))
 
 
 def capture(cfg: RigConfig) -> bytes:
