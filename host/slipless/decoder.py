@@ -4,11 +4,14 @@ Sans-IO like the deframer under it: `feed(chunk)` hands records to a sink,
 `finish()` flushes what was held and closes the accounting. Damaged input is
 counted, never raised (see Counters). What it keeps per run is bounded:
 the descriptor, a tick reference, the list of sequence gaps and at most
-MAX_HELD frames that wait for a descriptor or a tick anchor.
+MAX_HELD frames that wait for a descriptor or a tick anchor; and, so frames
+that come late (resent, from a mirror) unwrap against a reference near them,
+one earlier reference per half hot span (a few thousand in a day's run).
 """
 
 from __future__ import annotations
 
+import bisect
 import struct
 from dataclasses import dataclass, field
 from typing import Any, Protocol
@@ -87,6 +90,8 @@ class RunState:
     described: bool = False
     ref_seq: int = -1  # latest frame whose 64-bit tick is known
     ref_tick: int = 0
+    kept_refs: list[tuple[int, int]] = field(default_factory=list)  # (seq, tick): one per half
+    # hot span, so a frame that comes late (resent, from a mirror) still finds a reference
     held: list[tuple[int, int, bytes, int, Arrival]] = field(default_factory=list)
     first_seq: int = -1
     high_seq: int = -1
@@ -112,10 +117,28 @@ class RunState:
         return _TICK_LIMIT // self.max_gap_us - 1
 
     def tick_ok(self, seq: int) -> bool:
-        """Can a 32-bit tick of frame `seq` be unwrapped against the reference?"""
+        """Can a 32-bit tick of frame `seq` be unwrapped against a reference?"""
+        return self.ref_for(seq) is not None
+
+    def ref_for(self, seq: int) -> int | None:
+        """The 64-bit tick of a reference near enough `seq` for the nearest-tick
+        rule: the latest one, else the nearest of those kept; None if none is."""
         if self.ref_seq < 0:
-            return False
-        return (abs(seq - self.ref_seq) + 1) * self.max_gap_us < _TICK_LIMIT
+            return None
+        if (abs(seq - self.ref_seq) + 1) * self.max_gap_us < _TICK_LIMIT:
+            return self.ref_tick
+        i = bisect.bisect_left(self.kept_refs, (seq,))
+        for ref_seq, ref_tick in self.kept_refs[max(0, i - 1) : i + 1]:
+            if (abs(seq - ref_seq) + 1) * self.max_gap_us < _TICK_LIMIT:
+                return ref_tick
+        return None
+
+    def set_ref(self, seq: int, tick: int) -> None:
+        """A newer frame whose 64-bit tick is known becomes the reference."""
+        self.ref_seq, self.ref_tick = seq, tick
+        kept = self.kept_refs
+        if not kept or (seq - kept[-1][0]) * 2 >= self.hot_span:
+            kept.append((seq, tick))
 
 
 class Sink(Protocol):
@@ -254,6 +277,9 @@ class Decoder:
                         d = (tick32 - run.ref_tick) & 0xFFFFFFFF
                         tick = run.ref_tick + (d - 0x100000000 if d >= 0x80000000 else d)
                         run.ref_seq, run.ref_tick = seq, tick
+                        kept = run.kept_refs
+                        if not kept or (seq - kept[-1][0]) * 2 >= run.hot_span:
+                            kept.append((seq, tick))
                         if timed:
                             self._time_samples(run, seq, tick, len(body), batch.info)
                         batch.seqs.append(seq)
@@ -388,9 +414,10 @@ class Decoder:
         if (len(body) - _SAMPLES_HEAD.size) % info.dtype.itemsize:
             self.counters.malformed += 1
             return
-        tick = wire.unwrap_tick(tick32, run.ref_tick)
+        ref = run.ref_for(seq)
+        tick = wire.unwrap_tick(tick32, run.ref_tick if ref is None else ref)
         if seq > run.ref_seq and not forced:  # a sample frame is as good a reference as an anchor
-            run.ref_seq, run.ref_tick = seq, tick
+            run.set_ref(seq, tick)
         if self.arrival.mono_ns >= 0 and not forced:
             self._time_samples(run, seq, tick, len(body), info)
         key = (run.board, run.run, stream)
@@ -414,8 +441,9 @@ class Decoder:
         if kind == wire.DESCRIPTOR:
             self._descriptor(run, seq, f)
         elif kind == wire.EVENTS:
+            ref = run.ref_for(seq)
             for ev in f["events"]:
-                tick = wire.unwrap_tick(ev["tick32"], run.ref_tick)
+                tick = wire.unwrap_tick(ev["tick32"], run.ref_tick if ref is None else ref)
                 run.events += 1
                 self.sink.event(run, seq, tick, ev["code"], ev["value"])
         elif kind == wire.STATUS:
@@ -433,7 +461,7 @@ class Decoder:
 
     def _anchor(self, run: RunState, seq: int, tick: int, kind: int) -> None:
         if seq > run.ref_seq:
-            run.ref_seq, run.ref_tick = seq, tick
+            run.set_ref(seq, tick)
         if self.arrival.mono_ns >= 0:
             self.sink.timing(run, seq, kind, tick, self.arrival)
 
