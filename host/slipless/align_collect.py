@@ -8,7 +8,6 @@ different laptop sessions do not share a monotonic clock.
 
 from __future__ import annotations
 
-import functools
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -16,11 +15,10 @@ from typing import Any
 
 import numpy as np
 from rich.console import Console
-from rich.progress import BarColumn, DownloadColumn, Progress, TimeRemainingColumn
 
 from slipless import capture
 from slipless.decoder import Arrival, Decoder, NullSink, RunState, StreamInfo
-from slipless.inputs import PROGRESS_OVER, Source, classify, pieces
+from slipless.inputs import Source, check_decoded, classify_all, feed_all
 from slipless.protocol import wire
 
 Key = tuple[int, int]  # (board, run)
@@ -105,26 +103,11 @@ class Collected:
 
 def collect(inputs: Sequence[Path], mirrors: Sequence[Path], console: Console | None) -> Collected:
     """Decode every input (then every mirror file) into an AlignSink."""
-    from slipless.cli import _check_outcome  # the same verdicts as `slipless decode`
-
-    sources = [classify(p) for p in inputs] + [classify(p, mirror=True) for p in mirrors]
+    sources = classify_all(inputs, mirrors)
     sink = AlignSink()
     dec = Decoder(sink)
-    show = console is not None and sum(s.size for s in sources) > PROGRESS_OVER
-    with Progress("[progress.description]{task.description}", BarColumn(), DownloadColumn(),
-                  TimeRemainingColumn(), console=console, disable=not show) as bar:
-        for i, src in enumerate(sources):
-            task = bar.add_task(src.path.name, total=src.size)
-            sink.input = i
-            dec.new_input()
-            for data, where in pieces(src, functools.partial(bar.advance, task)):
-                if data is None:
-                    dec.reset_source(where.source)
-                else:
-                    dec.feed(data, where)
-    dec.finish()
-    _check_outcome(dec, [s.path for s in sources])
-    dec.notes += [s.note for s in sources if s.note]
+    feed_all(dec, sources, console, on_source=lambda i, _src: setattr(sink, "input", i))
+    check_decoded(dec, sources)  # the same verdicts as `slipless decode`
     anchors = [_anchor(src, i, sink) for i, src in enumerate(sources)]
     return Collected(dec, sink, sources, anchors)
 

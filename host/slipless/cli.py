@@ -7,7 +7,6 @@ Every user-facing failure is one line on stderr and a non-zero exit:
 from __future__ import annotations
 
 import argparse
-import functools
 import importlib
 import sys
 from collections.abc import Callable, Sequence
@@ -15,13 +14,12 @@ from pathlib import Path
 from typing import NoReturn
 
 from rich.console import Console
-from rich.progress import BarColumn, DownloadColumn, Progress, TaskID, TimeRemainingColumn
 from rich.table import Table
 
 from slipless import __version__
 from slipless.decoder import Decoder
-from slipless.errors import InputError, ProtocolVersionError, SliplessError
-from slipless.inputs import PROGRESS_OVER, classify, pieces
+from slipless.errors import SliplessError
+from slipless.inputs import check_decoded, classify_all, feed_all
 from slipless.protocol import wire
 from slipless.tables import FORMATS, TableSink
 
@@ -118,40 +116,13 @@ def decode_files(inputs: Sequence[Path], out: Path, fmt: str, console: Console |
     then the mirror filling what the radio lost. Returns the decoder for its
     counts.
     """
-    sources = [classify(p) for p in inputs] + [classify(p, mirror=True) for p in mirrors]
+    sources = classify_all(inputs, mirrors)
     sink = TableSink(out, fmt)  # after every input was checked: fail before writing anything
     dec = Decoder(sink)
-    show = console is not None and sum(s.size for s in sources) > PROGRESS_OVER
-    with Progress("[progress.description]{task.description}", BarColumn(), DownloadColumn(),
-                  TimeRemainingColumn(), console=console, disable=not show) as bar:
-        for src in sources:
-            task = bar.add_task(src.path.name, total=src.size)
-            dec.new_input()
-            for data, where in pieces(src, functools.partial(_advance, bar, task)):
-                if data is None:
-                    dec.reset_source(where.source)
-                else:
-                    dec.feed(data, where)
-    dec.finish()
+    feed_all(dec, sources, console)
     sink.close(list(dec.runs.values()), dec.missing, dec.corrupt_guess)
-    _check_outcome(dec, [s.path for s in sources])
-    dec.notes += [s.note for s in sources if s.note]
+    check_decoded(dec, sources)
     return dec
-
-
-def _advance(bar: Progress, task: TaskID, n: int) -> None:
-    bar.advance(task, n)
-
-
-def _check_outcome(dec: Decoder, inputs: Sequence[Path]) -> None:
-    c = dec.counters
-    if c.bad_version and not dec.runs:
-        seen = ", ".join(str(v) for v in sorted(c.versions_seen))
-        raise ProtocolVersionError(
-            f"frames use protocol version {seen}; this slipless reads version {wire.VERSION}")
-    if not dec.runs:
-        names = ", ".join(str(p) for p in inputs)
-        raise InputError(f"{names}: no slipless frames found (not a capture, or wholly damaged)")
 
 
 def cmd_decode(args: argparse.Namespace, console: Console) -> int:

@@ -85,6 +85,7 @@ class RunState:
     tick_hz: int = 0
     fw: str = ""
     max_gap_us: int = wire.DEFAULT_MAX_GAP_MS * 1000
+    hot_span: int = _TICK_LIMIT // (wire.DEFAULT_MAX_GAP_MS * 1000) - 1  # see set_max_gap
     n_streams: int = 0
     streams: dict[int, StreamInfo] = field(default_factory=dict)
     described: bool = False
@@ -111,10 +112,10 @@ class RunState:
     def key(self) -> tuple[int, int]:
         return (self.board, self.run)
 
-    @property
-    def hot_span(self) -> int:
-        """Frames after the reference within which the nearest-tick rule holds."""
-        return _TICK_LIMIT // self.max_gap_us - 1
+    def set_max_gap(self, max_gap_ms: int) -> None:
+        self.max_gap_us = max(1, max_gap_ms) * 1000
+        # frames after the reference within which the nearest-tick rule holds
+        self.hot_span = _TICK_LIMIT // self.max_gap_us - 1
 
     def tick_ok(self, seq: int) -> bool:
         """Can a 32-bit tick of frame `seq` be unwrapped against a reference?"""
@@ -276,10 +277,7 @@ class Decoder:
                         frame_sink(run, seq, wire.SAMPLES, "received", offset, origin, arrival)
                         d = (tick32 - run.ref_tick) & 0xFFFFFFFF
                         tick = run.ref_tick + (d - 0x100000000 if d >= 0x80000000 else d)
-                        run.ref_seq, run.ref_tick = seq, tick
-                        kept = run.kept_refs
-                        if not kept or (seq - kept[-1][0]) * 2 >= run.hot_span:
-                            kept.append((seq, tick))
+                        run.set_ref(seq, tick)
                         if timed:
                             self._time_samples(run, seq, tick, len(body), batch.info)
                         batch.seqs.append(seq)
@@ -474,7 +472,7 @@ class Decoder:
         first = not run.described
         run.tick_hz = f["tick_hz"]
         run.fw = f"{f['fw_major']}.{f['fw_minor']}.{f['fw_patch']}"
-        run.max_gap_us = max(1, f["max_gap_ms"]) * 1000
+        run.set_max_gap(f["max_gap_ms"])
         run.n_streams = f["n_streams"]
         for s in f["streams"]:
             if s["type"] not in _DTYPES:  # a sample type this release cannot unpack

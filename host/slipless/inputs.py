@@ -8,14 +8,19 @@ theirs), the board's file mirror (named with --mirror) and raw byte streams
 
 from __future__ import annotations
 
+import functools
 import json
-from collections.abc import Callable, Iterator
+from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
+from rich.console import Console
+from rich.progress import BarColumn, DownloadColumn, Progress, TimeRemainingColumn
+
 from slipless import capture
-from slipless.decoder import Arrival
-from slipless.errors import InputError
+from slipless.decoder import Arrival, Decoder
+from slipless.errors import InputError, ProtocolVersionError
+from slipless.protocol import wire
 
 CHUNK = 1 << 20
 PROGRESS_OVER = 4 << 20  # show a progress bar for inputs larger than this
@@ -125,3 +130,51 @@ def _capture_pieces(src: Source, on_progress: Callable[[int], None] | None) -> I
     if st.damaged_bytes or st.truncated_bytes:
         src.note = (f"{src.path.name}: {st.damaged_bytes} damaged bytes in {st.damaged_stretches} "
                     f"stretch(es) skipped, {st.truncated_bytes} bytes of an unfinished last record")
+
+
+def classify_all(inputs: Sequence[Path], mirrors: Sequence[Path] = ()) -> list[Source]:
+    """Every input, then every mirror file: the order the merge relies on
+    (the first copy of a frame wins, so the radio comes first)."""
+    return [classify(p) for p in inputs] + [classify(p, mirror=True) for p in mirrors]
+
+
+def feed_all(dec: Decoder, sources: Sequence[Source], console: Console | None = None,
+             tap: Callable[[bytes, Arrival], None] | None = None,
+             on_source: Callable[[int, Source], None] | None = None) -> None:
+    """Feed every source to the decoder, each as a separate input (never glued
+    to the one before), with a progress bar for large inputs; then finish.
+
+    tap sees every piece of data after the decoder; on_source is told which
+    source starts.
+    """
+    show = console is not None and sum(s.size for s in sources) > PROGRESS_OVER
+    with Progress("[progress.description]{task.description}", BarColumn(), DownloadColumn(),
+                  TimeRemainingColumn(), console=console, disable=not show) as bar:
+        for i, src in enumerate(sources):
+            task = bar.add_task(src.path.name, total=src.size)
+            if on_source is not None:
+                on_source(i, src)
+            dec.new_input()
+            for data, where in pieces(src, functools.partial(bar.advance, task)):
+                if data is None:
+                    dec.reset_source(where.source)
+                    continue
+                dec.feed(data, where)
+                if tap is not None:
+                    tap(data, where)
+    dec.finish()
+    dec.notes += [s.note for s in sources if s.note]
+
+
+def check_decoded(dec: Decoder, sources: Sequence[Source]) -> None:
+    """One clear verdict when nothing decoded: a protocol version we do not
+    read, or no slipless frames at all."""
+    if dec.runs:
+        return
+    c = dec.counters
+    if c.bad_version:
+        seen = ", ".join(str(v) for v in sorted(c.versions_seen))
+        raise ProtocolVersionError(
+            f"frames use protocol version {seen}; this slipless reads version {wire.VERSION}")
+    names = ", ".join(str(s.path) for s in sources)
+    raise InputError(f"{names}: no slipless frames found (not a capture, or wholly damaged)")

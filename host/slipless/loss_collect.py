@@ -22,8 +22,8 @@ import numpy as np
 from slipless import capture
 from slipless.decoder import Arrival, Decoder, NullSink, RunState, StreamInfo
 from slipless.deframe import FastDeframer
-from slipless.errors import InputError, ProtocolVersionError
-from slipless.inputs import TX_SOURCE_BASE, Source, classify, pieces
+from slipless.errors import InputError
+from slipless.inputs import TX_SOURCE_BASE, Source, check_decoded, classify_all, feed_all
 from slipless.protocol import wire
 
 # Rotation-rate units a stream may carry, as factors to rad/s.
@@ -235,37 +235,20 @@ def link_down(path: Path) -> list[LinkDown]:
 def collect(inputs: Sequence[Path], mirrors: Sequence[Path] = (),
             angle_stream: str | None = None) -> Facts:
     """Decode every input, then every mirror file, into per-run facts."""
-    sources = [classify(p) for p in inputs] + [classify(p, mirror=True) for p in mirrors]
+    sources = classify_all(inputs, mirrors)
     sink = LossSink(angle_stream)
     dec = Decoder(sink)
     commands = CommandLog()
-    downs: list[LinkDown] = []
-    for src in sources:
-        dec.new_input()
-        commands.new_input()
-        for data, where in pieces(src):
-            if data is None:
-                dec.reset_source(where.source)
-                continue
-            dec.feed(data, where)
-            if where.source >= TX_SOURCE_BASE:
-                commands.feed(data, where)
-        if src.kind == "capture":
-            downs += link_down(src.path)
-    dec.finish()
-    _check(dec, sources)
+
+    def tap(data: bytes, where: Arrival) -> None:
+        if where.source >= TX_SOURCE_BASE:  # what the laptop wrote: its RESEND commands
+            commands.feed(data, where)
+
+    feed_all(dec, sources, tap=tap, on_source=lambda _i, _s: commands.new_input())
+    check_decoded(dec, sources)
+    downs = [d for src in sources if src.kind == "capture" for d in link_down(src.path)]
     for run in dec.runs.values():  # runs whose frames were all duplicates still get facts
         sink.facts_for(run)
     return Facts(sink.runs, dec, commands.resends, downs, sources)
 
 
-def _check(dec: Decoder, sources: Sequence[Source]) -> None:
-    if dec.runs:
-        return
-    c = dec.counters
-    if c.bad_version:
-        seen = ", ".join(str(v) for v in sorted(c.versions_seen))
-        raise ProtocolVersionError(
-            f"frames use protocol version {seen}; this slipless reads version {wire.VERSION}")
-    names = ", ".join(str(s.path) for s in sources)
-    raise InputError(f"{names}: no slipless frames found (not a capture, or wholly damaged)")

@@ -15,6 +15,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from slipless.loss import DROPPED, LOST, MIRROR, RESEND, RunAccount
+from slipless.plotting import pyplot
 
 if TYPE_CHECKING:
     from matplotlib.axes import Axes
@@ -62,10 +63,7 @@ def _polar(ax: PolarAxes, a: RunAccount) -> None:
 
 
 def plot(accounts: Sequence[RunAccount], path: Path) -> None:
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
+    plt = pyplot()
 
     shown = sorted(accounts, key=lambda a: -int(a.live_lost.sum()))[:MAX_RUNS]
     shown.sort(key=lambda a: (a.board, a.run))

@@ -18,7 +18,7 @@ import numpy as np
 
 from slipless.decoder import Decoder, NullSink, RunState, StreamInfo
 from slipless.errors import InputError
-from slipless.inputs import Source, classify, pieces
+from slipless.inputs import Source, classify, feed_all
 from slipless.protocol import wire
 
 
@@ -106,14 +106,7 @@ def decode_sources(sources: Sequence[Source]) -> list[RunData]:
     """Decode inputs of any kind `slipless decode` reads (merged the same way)."""
     sink = ArraySink()
     dec = Decoder(sink)
-    for src in sources:
-        dec.new_input()
-        for data, where in pieces(src):
-            if data is None:
-                dec.reset_source(where.source)
-            else:
-                dec.feed(data, where)
-    dec.finish()
+    feed_all(dec, sources)
     return sink.runs({k: r.tick_hz for k, r in dec.runs.items()})
 
 

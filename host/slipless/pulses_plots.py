@@ -4,15 +4,14 @@ from __future__ import annotations
 
 import warnings
 from pathlib import Path
+from typing import Any
 
-import matplotlib
+import numpy as np
 
-matplotlib.use("Agg")
+from slipless.plotting import pyplot
+from slipless.pulses import Analysis
 
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-
-from slipless.pulses import Analysis  # noqa: E402
+plt = pyplot()  # this module is imported only to draw
 
 DPI = 120
 PLOT_POINTS = 400  # averaged waveforms are binned to about this many points
@@ -105,7 +104,7 @@ def against_model(a: Analysis, path: Path) -> Path:
     return _save(fig, path)
 
 
-def _save(fig: plt.Figure, path: Path) -> Path:
+def _save(fig: Any, path: Path) -> Path:
     fig.tight_layout()
     fig.savefig(path, dpi=DPI)
     plt.close(fig)

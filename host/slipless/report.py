@@ -20,6 +20,7 @@ import numpy as np
 
 from slipless import __version__
 from slipless.errors import InputError
+from slipless.plotting import pyplot
 from slipless.report_html import esc, img_bytes, num, page, png, table
 
 SAFETY = (
@@ -175,10 +176,7 @@ def _clock_section(d: ReportData) -> str:
            + table(("board", "run", "skew ppm", "offset s", "delay ms", "bound ± ms",
                     "syncs kept", "basis"), rows))
     if d.residuals:
-        import matplotlib
-
-        matplotlib.use("Agg")
-        import matplotlib.pyplot as plt
+        plt = pyplot()
 
         fig, ax = plt.subplots(figsize=(10, 3.2), layout="constrained")
         for (b, r), (t, above) in sorted(d.residuals.items()):
@@ -199,10 +197,7 @@ def _traces(d: ReportData) -> str:
     picks = _pick_pulses(a)
     if not picks:
         return "<p class=\"note\">no pulse with both signal and current to show</p>"
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
+    plt = pyplot()
 
     runs = {(rd.board, rd.run): rd for rd in d.runs}
     fig, axes = plt.subplots(2, len(picks), figsize=(11, 4.6), sharex="col", squeeze=False,
