@@ -17,14 +17,13 @@ import json
 import random
 import struct
 from pathlib import Path
-from typing import Any
 
 import pytest
 
 from slipless import capture
 from slipless.cli import main
 from slipless.protocol import wire
-from slipless.sim import ble_board
+from slipless.sim.radioless import RadiolessRun
 
 CONFIG = {
     "board_id": 9,
@@ -50,37 +49,19 @@ def _split(data: bytes) -> list[bytes]:
     return [p + b"\x00" for p in data.split(b"\x00")[:-1]]
 
 
-class Storm:
+class Storm(RadiolessRun):
     """The board on simulated hardware and a laptop writing a capture."""
 
     def __init__(self, path: Path) -> None:
-        ble_board.firmware_on_path()
-        import config as fw_config
-        from board import Board
-        from simhw import SimHW, SinkLink
-
-        self.hw = SimHW()
-        self.built: list[bytes] = []  # every frame the board built, once: its mirror
-        self.hw.on_frame = lambda slot, n: self.built.append(bytes(slot[:n]))
         self.kinds: dict[int, int] = {}  # seq -> frame kind, filled as frames leave
-        self.board = Board(fw_config.validate(CONFIG), self.hw, self.hw.next_run_id())
-        self.link = SinkLink(self.board.ring, keep=True)
-        self.board.link = self.link
-        self.capture = capture.CaptureWriter(path, {"sources": [{}]}, sync_every_s=1e9)
-        self.t_ns = 10**9
-        self.radio_up = True  # False: frames leave the board and reach nobody
-        self.laptop = wire.Encoder(0xFFFF, 0)
-        self.requests = 0
         self.delivered: list[tuple[int, bool]] = []  # (seq, asked for before) as they arrived
         self.on_air_live: set[int] = set()  # seqs the board sent before anyone asked again
         self.asked: set[int] = set()
-        self.event("connected")
+        super().__init__(path, CONFIG, STEP_US)
 
     def run_for(self, ms: int) -> None:
         for _ in range(ms * 1000 // STEP_US):
-            self.hw.advance(STEP_US)
-            self.board.poll()
-            self.t_ns += STEP_US * 1000
+            self.turn()
             new = bytes(self.link.keep)
             self.link.keep.clear()
             for f in _split(new):
@@ -92,16 +73,6 @@ class Storm:
                 if self.radio_up:  # one notification per frame
                     self.capture.write(capture.RX, 0, f, self.t_ns, self.t_ns)
                     self.delivered.append((seq, seq in self.asked))
-
-    def command(self, build: Any) -> None:
-        self.requests += 1
-        data = self.laptop.frame(build(self.laptop, self.requests))
-        self.capture.write(capture.TX, 0, data, self.t_ns, self.t_ns)
-        self.board.command_bytes(data)
-
-    def event(self, name: str) -> None:
-        self.capture.write(capture.EVENT, 0, json.dumps({"event": name}).encode(), self.t_ns,
-                           self.t_ns)
 
     def ask_again(self) -> None:
         """The laptop asks for each run of seqs it is missing (and has not asked for)."""

@@ -6,15 +6,14 @@ board and the link really put it."""
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
-from typing import Any
 
 from slipless import capture
+from slipless.decoder import collect as decode_chunks
 from slipless.loss import DROPPED, RECEIVED, RESEND, analyse
 from slipless.loss_collect import collect
 from slipless.protocol import wire
-from slipless.sim import ble_board
+from slipless.sim.radioless import RadiolessRun
 
 CONFIG = {
     "board_id": 6,
@@ -32,34 +31,16 @@ CONFIG = {
 STEP_US = 1000
 
 
-class Rig:
+class Rig(RadiolessRun):
     """The board on simulated hardware, with a laptop writing a capture."""
 
     def __init__(self, path: Path) -> None:
-        ble_board.firmware_on_path()
-        import config as fw_config
-        from board import Board
-        from simhw import SimHW, SinkLink
-
-        self.hw = SimHW()
-        self.built: list[bytes] = []  # every frame the board built: the mirror and the truth
-        self.hw.on_frame = lambda slot, n: self.built.append(bytes(slot[:n]))
-        self.board = Board(fw_config.validate(CONFIG), self.hw, self.hw.next_run_id())
-        self.link = SinkLink(self.board.ring, keep=True)
-        self.board.link = self.link
-        self.capture = capture.CaptureWriter(path, {"sources": [{}]}, sync_every_s=1e9)
-        self.t_ns = 10**9
+        super().__init__(path, CONFIG, STEP_US)
         self.sent = 0  # bytes of link.keep already written to the capture
-        self.radio_up = True  # False: bytes leave the board but never reach the laptop
-        self.laptop = wire.Encoder(0xFFFF, 0)
-        self.requests = 0
-        self.event("connected")
 
     def run_for(self, ms: int) -> None:
         for _ in range(ms * 1000 // STEP_US):
-            self.hw.advance(STEP_US)
-            self.board.poll()
-            self.t_ns += STEP_US * 1000
+            self.turn()
             new = bytes(self.link.keep[self.sent :])
             self.sent = len(self.link.keep)
             if self.radio_up:
@@ -67,24 +48,9 @@ class Rig:
                     self.capture.write(capture.RX, 0, new[i : i + wire.MAX_WIRE], self.t_ns,
                                        self.t_ns)
 
-    def command(self, build: Any) -> None:
-        self.requests += 1
-        data = self.laptop.frame(build(self.laptop, self.requests))
-        self.capture.write(capture.TX, 0, data, self.t_ns, self.t_ns)
-        self.board.command_bytes(data)
-
-    def event(self, name: str) -> None:
-        self.capture.write(capture.EVENT, 0, json.dumps({"event": name}).encode(), self.t_ns,
-                           self.t_ns)
-
 
 def _seqs(stream: bytes) -> list[int]:
-    from slipless.decoder import CollectSink, Decoder
-
-    sink = CollectSink()
-    dec = Decoder(sink)
-    dec.feed(stream)
-    dec.finish()
+    _, sink = decode_chunks([stream])
     return [seq for _, _, seq, fate in sink.frames if fate == "received"]
 
 
