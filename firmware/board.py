@@ -21,7 +21,7 @@ from sampler import Sampler, Stream
 import wire
 from clock import UNIT_BITS
 
-FW = (0, 2, 0)
+FW = (0, 3, 0)  # the firmware version the descriptor reports (the package version)
 TICK_HZ = const(1000000)
 END_STOP = const(1)
 END_DONE = const(2)

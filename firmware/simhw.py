@@ -1,6 +1,8 @@
 """A simulated hardware layer: the board code runs on it in tests and in the demo.
 
-Time only moves when advance() is called, so runs are exact and repeatable.
+Time only moves when advance() is called, so runs are exact and repeatable;
+or, given now_us, it follows that clock (a simulation's own, e.g. a board
+clock derived from the laptop's simulated time with a skew).
 Channels are deterministic waveforms made of small ints (reading them never
 touches the heap, like a real ADC read). Not deployed to boards.
 """
@@ -41,7 +43,8 @@ class Saw:
 
 
 class SimHW:
-    def __init__(self, start_us=0):
+    def __init__(self, start_us=0, now_us=None):
+        self.now_us = now_us  # None, or a callable giving board time in microseconds
         self._us = start_us & ((1 << 30) - 1)
         self._ms = (start_us // 1000) & ((1 << 30) - 1)
         self._frac = 0
@@ -57,9 +60,13 @@ class SimHW:
         self.auth_path = None  # command counter kept in RAM (a real board keeps it on flash)
 
     def ticks_us(self):
+        if self.now_us is not None:
+            return self.now_us() & 0x3FFFFFFF
         return self._us
 
     def ticks_ms(self):
+        if self.now_us is not None:
+            return (self.now_us() // 1000) & 0x3FFFFFFF
         return self._ms
 
     def advance(self, us):

@@ -37,6 +37,19 @@ EVENT = 3  # link event, payload is UTF-8 JSON: {"event": "connected", ...}
 TYPE_NAMES = {RX: "rx", TX: "tx", EVENT: "event"}
 
 
+class SystemClock:
+    """The laptop's own clocks: monotonic and wall time, in nanoseconds.
+    Simulations hand the recorder and the writer a simulated one instead."""
+
+    @staticmethod
+    def mono_ns() -> int:
+        return time.monotonic_ns()
+
+    @staticmethod
+    def wall_ns() -> int:
+        return time.time_ns()
+
+
 class CaptureError(Exception):
     """The file is not a capture (bad magic, unknown version, bad header)."""
 
@@ -62,8 +75,10 @@ class ReadStats:
 class CaptureWriter:
     """Append records; flush and fsync every `sync_every_s` seconds."""
 
-    def __init__(self, path: Path, meta: dict[str, Any], sync_every_s: float = 1.0) -> None:
+    def __init__(self, path: Path, meta: dict[str, Any], sync_every_s: float = 1.0,
+                 clock: Any = None) -> None:
         self.path = path
+        self.clock = clock if clock is not None else SystemClock()
         self._f: BinaryIO = path.open("wb")
         raw = json.dumps(meta, sort_keys=True).encode()
         self._f.write(_FILE_HEAD.pack(MAGIC, VERSION, len(raw), zlib.crc32(raw)) + raw)
@@ -77,8 +92,8 @@ class CaptureWriter:
         if len(payload) > MAX_PAYLOAD:
             raise ValueError(f"record payload of {len(payload)} bytes exceeds {MAX_PAYLOAD}")
         head = _REC_HEAD.pack(SYNC, type_, source, len(payload),
-                              time.monotonic_ns() if mono_ns is None else mono_ns,
-                              time.time_ns() if wall_ns is None else wall_ns)
+                              self.clock.mono_ns() if mono_ns is None else mono_ns,
+                              self.clock.wall_ns() if wall_ns is None else wall_ns)
         body = head + payload
         self._f.write(body + struct.pack("<I", zlib.crc32(body)))
         self.records += 1

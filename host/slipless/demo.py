@@ -3,20 +3,24 @@
 Scenario (invented, for the demo only; sim/scenario.py): board 1 rides on a
 turntable that runs stopped, counter-clockwise and clockwise blocks at one
 turn per second while a solenoid around a rotating coaxial capacitor is
-pulsed +, off, -, off. An electrometer amplifier reads the capacitor; the
-board samples it, the coil current and a gyro on a clock 23 ppm fast. The
-radio loses what the board sends while its antenna faces a dead sector of
-the turn, drops the link once (the recorder asks for the gap afterwards and
-the board resends what its ring still holds), and the board's send queue
-overflows once. The laptop decodes the capture, merges the board's mirror,
-accounts for every frame, fits the board's clock, reduces every pulse,
-compares the field x rotation term with the model and writes the report.
-Every figure printed is checked against the simulation's own truth.
+pulsed +, off, -, off. An electrometer amplifier reads the capacitor. The
+board's own firmware, on a simulated hardware layer whose clock runs 23 ppm
+fast, samples it, the coil current and a gyro, drives the coil program and
+radios its frames over a real BLE stack (bumble's virtual link) to the
+recorder of `slipless record`. The radio loses what the board sends while
+its antenna faces a dead sector of the turn, stalls once so the board's send
+queue overflows, and drops the link once; the recorder asks for the gaps and
+the board resends what its ring still holds. The laptop decodes the capture,
+merges the board's mirror, accounts for every frame, fits the board's clock,
+reduces every pulse, compares the field x rotation term with the model and
+writes the report. Every figure printed is checked against the simulation's
+own truth.
 """
 
 from __future__ import annotations
 
 import argparse
+import csv
 import json
 import time
 from dataclasses import asdict
@@ -30,7 +34,7 @@ from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 from slipless.cli import decode_files
 from slipless.sim.scenario import Scenario, ScenarioConfig, build
 
-STAGES = ("simulating the rig, the board and the link", "decoding capture + mirror",
+STAGES = ("running the board's firmware, the radio and the recorder", "decoding capture + mirror",
           "accounting for every frame", "fitting the board's clock", "reducing the pulses",
           "writing the report")
 
@@ -48,15 +52,18 @@ def run_demo(args: argparse.Namespace, console: Console) -> int:
                 console.print(line, highlight=False)
             bar.update(task, completed=k, description=STAGES[k] if k < len(STAGES) else "done")
 
-        sc = build(out, ScenarioConfig(seed=args.seed, seconds=args.seconds))
+        print_safety(console)
+        sc = build(out, ScenarioConfig(seed=args.seed, seconds=args.seconds),
+                   lambda done: bar.update(task, completed=done))
         prediction = out / "prediction.json"
         prediction.write_text(json.dumps({"inputs": asdict(sc.rig.rig_inputs()),
                                           "results": sc.rig.prediction()}, indent=1, default=float))
         stage(1, _scenario_lines(sc))
         dec = decode_files([sc.capture], out / "tables", "csv", None, [sc.mirror])
-        run = dec.runs[(sc.rig.board, sc.rig.run)]
+        run = dec.runs[(sc.rig.board, sc.run)]
         stage(2, [f"decode: {run.received:,} frames ({sc.frames:,} built), {run.samples:,} "
-                  f"samples, end of run {'seen' if run.end else 'not seen'} -> {out / 'tables'}/"])
+                  f"samples, end of run {'seen' if run.end else 'not seen'} -> {out / 'tables'}/",
+                  _coil_line(sc, out / "tables" / "events.csv")])
         stage(3, _loss_lines(sc, out))
         from slipless.report import collect, write
 
@@ -71,19 +78,46 @@ def run_demo(args: argparse.Namespace, console: Console) -> int:
     return 0
 
 
+def print_safety(console: Console) -> None:
+    console.print("simulated only: nothing spins and no coil is driven. On a real rig, guard the "
+                  "rotor, size the flyback path, watch coil heating and the board's battery, and "
+                  "follow your local codes (README, Safety).", highlight=False)
+
+
 def _scenario_lines(sc: Scenario) -> list[str]:
-    c, rc = sc.cfg, sc.rig
+    c, rc, t = sc.cfg, sc.rig, sc.truth
     return [
         f"scenario: {rc.seconds:.0f} s of board {rc.board} (seed {c.seed}), blocks of "
         f"{rc.block_s:.0f} s stopped / ccw / cw at 1 turn/s, coil +, off, -, off; "
         f"board clock {c.skew_ppm:+.1f} ppm",
-        f"simulated: {sc.frames:,} frames built; {len(sc.board_dropped)} dropped by the board's "
-        f"queue; {len(sc.shadow_lost)} lost at the dead angle "
-        f"({c.dead_from_deg:.0f}-{c.dead_to_deg:.0f} deg) or at random; link down "
-        f"{sc.down_board_s[0]:.1f}-{sc.down_board_s[1]:.1f} s ({len(sc.down)} frames, "
-        f"{len(sc.resent)} resent after reconnecting); {sc.pings} pings",
+        f"board firmware: run {sc.run}, {sc.frames:,} frames built; its send queue dropped "
+        f"{sc.board_dropped} (counted in STATUS) while the link stalled "
+        f"{sc.stall_board_s[0]:.1f}-{sc.stall_board_s[1]:.1f} s and was down "
+        f"{sc.down_board_s[0]:.1f}-{sc.down_board_s[1]:.1f} s",
+        f"radio: {t.notes_dead} notifications lost at the dead angle "
+        f"({c.dead_from_deg:.0f}-{c.dead_to_deg:.0f} deg), {t.notes_random} elsewhere; "
+        f"{sc.progress.reconnects} reconnection; recorder: {sc.pings} pings, "
+        f"{len(t.asked)} frames asked for again",
         f"capture: {sc.capture}  mirror: {sc.mirror}",
     ]
+
+
+def _coil_line(sc: Scenario, events: Path) -> str:
+    """The board's coil events (decoded) against the rig's plan."""
+    from slipless.sim.rig import coil_program
+
+    plan_t, plan_s = coil_program(sc.rig)
+    with events.open() as f:  # in the order they arrived: resent and mirrored ones come late
+        rows = sorted({(int(r["tick_us"]), int(r["value"])) for r in csv.DictReader(f)
+                       if r["event"] == "coil" and int(r["run"]) == sc.run})
+    got_t = np.array([tick / 1e6 - sc.run_start_s for tick, _ in rows])
+    got_s = np.array([value for _, value in rows])
+    n = plan_t.size  # the board also switches off at the end of the run
+    same = got_t.size == n + 1 and bool(np.all(got_s[:n] == plan_s))
+    worst = float(np.max(np.abs(got_t[:n] - plan_t))) * 1e3 if same else float("nan")
+    return (f"      coil: the board switched {got_t.size} times; "
+            + (f"its program matches the rig's plan within {worst:.2f} ms" if same and worst < 2.0
+               else "it DOES NOT FOLLOW the rig's plan"))
 
 
 def _loss_lines(sc: Scenario, out: Path) -> list[str]:
@@ -100,19 +134,21 @@ def _loss_lines(sc: Scenario, out: Path) -> list[str]:
         name = "loss-radio" if not mirrors else "loss"
         (out / f"{name}.json").write_text(json.dumps(doc, indent=1) + "\n")
         plot(accounts, out / f"{name}.png")
-        lines.append(f"loss ({label}): {doc['frames_expected']:,} expected = "
-                     f"{doc['frames_received']:,} received + {doc['frames_recovered_resend']} "
-                     f"resent + {doc['frames_recovered_mirror']} from the mirror + "
-                     f"{doc['frames_lost']} lost + {doc['frames_dropped_board']} dropped on the "
-                     f"board: {'closes' if doc['closes'] else 'DOES NOT CLOSE'} -> {out / name}.json")
+        run = next(r for r in doc["runs"] if r["run"] == sc.run)
+        lines.append(f"loss ({label}): {run['frames_expected']:,} expected = "
+                     f"{run['frames_received']:,} received + {run['frames_recovered_resend']} "
+                     f"resent + {run['frames_recovered_mirror']} from the mirror + "
+                     f"{run['frames_lost']} lost + {run['frames_dropped_board']} dropped on the "
+                     f"board: {'closes' if run['closes'] else 'DOES NOT CLOSE'} -> {out / name}.json")
         if not mirrors:
-            lost = len(sc.shadow_lost) + len(sc.down) - len(sc.resent)
-            ok = (doc["frames_lost"] == lost and doc["frames_dropped_board"] == len(sc.board_dropped)
-                  and doc["frames_recovered_resend"] == len(sc.resent))
-            causes = sorted({g["cause"] for g in doc["gaps"]})
-            worst = (doc["runs"][0].get("angle") or {}).get("worst_deg", float("nan"))
-            lines.append(f"      against the simulation: lost {lost}, dropped "
-                         f"{len(sc.board_dropped)}, resent {len(sc.resent)}: "
+            t = sc.truth_terms()
+            ok = (run["frames_received"] == t["received"] and run["frames_lost"] == t["lost"]
+                  and run["frames_recovered_resend"] == t["resent"]
+                  and run["frames_dropped_board"] == t["dropped"])
+            causes = sorted({g["cause"] for g in run["gaps"]})
+            worst = (run.get("angle") or {}).get("worst_deg", float("nan"))
+            lines.append(f"      against the simulation: received {t['received']:,}, resent "
+                         f"{t['resent']}, lost {t['lost']}, dropped {t['dropped']}: "
                          f"{'every term matches' if ok else 'MISMATCH'}; gap causes found: "
                          f"{', '.join(causes)}; worst angle (integrated gyro) {worst:.0f} deg "
                          f"(dead sector {sc.cfg.dead_from_deg:.0f}-{sc.cfg.dead_to_deg:.0f})")
@@ -123,7 +159,7 @@ def _clock_lines(sc: Scenario, data: Any, out: Path) -> list[str]:
     from slipless.align import align_files
 
     align_files([sc.capture], out / "aligned", "csv", 10_000_000, 600.0, None, [sc.mirror])
-    c = data.clocks[(sc.rig.board, sc.rig.run)]
+    c = data.clocks[(sc.rig.board, sc.run)]
     m = c.model
     ticks = np.linspace(0, sc.rig.seconds * 1e6, 200).astype(np.int64)
     err_ms = float(np.max(np.abs(m.laptop_ns(ticks) - sc.clock.laptop_ns(ticks)))) / 1e6
@@ -141,7 +177,7 @@ def _pulse_lines(sc: Scenario, data: Any, out: Path) -> list[str]:
 
     a = data.pulses
     write_outputs(a, out / "pulses", "csv", plots=True)
-    truth = sc.truth()
+    truth = sc.truth_values()
     tq = stats.t.ppf(0.5 + a.options.level / 2, a.fit.dof)
     lines = [f"pulses: {len(a.pulses)} found, {len(a.used)} used -> {out / 'pulses'}/"]
     names = list(a.fit.names)

@@ -11,7 +11,6 @@ from __future__ import annotations
 
 import asyncio
 import struct
-import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
@@ -96,6 +95,7 @@ class Recorder:
         self.capture = capture
         self.opts = opts
         self.on_progress = on_progress
+        self.clock = capture.clock  # the laptop's clocks (simulated ones in simulations)
         self.sink = _LiveSink()
         self.decoder = Decoder(self.sink, flush_bytes=1 << 16)
         self.state = "idle"
@@ -110,6 +110,9 @@ class Recorder:
         self._sealed: dict[int, bytes] = {}  # opcode -> args of the last sealed command
         self.auth_error = ""  # why the board refused a sealed command (not retryable)
 
+    def _now(self) -> float:
+        return float(self.clock.mono_ns()) / 1e9
+
     # ---- state -------------------------------------------------------------------
     def _move(self, new: str) -> None:
         if new not in STATES[self.state]:
@@ -123,7 +126,7 @@ class Recorder:
 
     # ---- link callbacks ------------------------------------------------------------
     def _on_data(self, data: bytes) -> None:
-        mono, wall = time.monotonic_ns(), time.time_ns()
+        mono, wall = self.clock.mono_ns(), self.clock.wall_ns()
         self.capture.write(RX, 0, data, mono, wall)
         self.decoder.feed(data, Arrival(0, mono, wall, "radio"))
 
@@ -167,7 +170,7 @@ class Recorder:
 
     # ---- the run -----------------------------------------------------------------------
     async def run(self) -> Progress:
-        deadline = time.monotonic() + self.opts.duration_s if self.opts.duration_s else None
+        deadline = self._now() + self.opts.duration_s if self.opts.duration_s else None
         attempt = 0
         while not self._stop.is_set():
             self._move("connecting")
@@ -216,17 +219,17 @@ class Recorder:
             pass
 
     async def _live(self, deadline: float | None) -> None:
-        next_ping = time.monotonic()
-        next_resend = time.monotonic() + self.opts.resend_every_s
+        next_ping = self._now()
+        next_resend = self._now() + self.opts.resend_every_s
         while not (self._dropped.is_set() or self._stop.is_set() or self.sink.ended
                    or self.sink.pulled or (self.opts.pull and self.sink.last_error)):
-            now = time.monotonic()
+            now = self._now()
             if deadline is not None and now >= deadline:
                 self._stop.set()
                 break
             if now >= next_ping:
                 next_ping = now + self.opts.ping_every_s
-                await self._send(self._enc.ping(self._next_request(), time.monotonic_ns()))
+                await self._send(self._enc.ping(self._next_request(), self.clock.mono_ns()))
             if now >= next_resend:
                 next_resend = now + self.opts.resend_every_s
                 await self._request_resends(now)
@@ -266,9 +269,9 @@ class Recorder:
             await self._send(self._guarded(wire.CMD_STOP))
         except LinkError:
             return
-        end = time.monotonic() + self.opts.drain_s
-        while time.monotonic() < end:
-            await self._request_resends(time.monotonic())
+        end = self._now() + self.opts.drain_s
+        while self._now() < end:
+            await self._request_resends(self._now())
             if self.opts.signer is not None and self.sink.refused:
                 await self._after_refusals()
             if self.sink.ended and not any(r.gaps for r in self.decoder.runs.values()):

@@ -47,6 +47,7 @@ class ReportData:
     pulses: Any = None  # pulses.Analysis
     runs: list[Any] = field(default_factory=list)  # pulses_data.RunData
     notes: dict[str, str] = field(default_factory=dict)  # section -> why it is empty
+    idle: set[tuple[int, int]] = field(default_factory=set)  # (board, run) with no run started
     channels: tuple[str, str] = ("cap_amp", "coil_current")  # signal, current
 
 
@@ -68,10 +69,17 @@ def _loss(d: ReportData) -> None:
     facts = loss_collect(d.inputs, d.mirrors, None)  # bad input raises here, before anything
     accounts = analyse(facts)
     d.loss_doc = document(accounts, facts, None)
+    d.idle = {(r["board"], r["run"]) for r in d.loss_doc["runs"] if _idle(r)}
     with tempfile.TemporaryDirectory() as tmp:
         path = Path(tmp) / "loss.png"
-        plot(accounts, path)
+        plot([a for a in accounts if (a.board, a.run) not in d.idle] or accounts, path)
         d.loss_png = path.read_bytes()
+
+
+def _idle(r: dict[str, Any]) -> bool:
+    """A board idling outside any started run (say, its STATUS frames after boot):
+    no streams, no samples, no END. Listed, but not worth a section of its own."""
+    return not r["streams"] and not r["samples_expected"] and not r["end_seen"]
 
 
 def _clock(d: ReportData) -> None:
@@ -124,7 +132,10 @@ def _summary(d: ReportData) -> str:
 def _completeness(d: ReportData) -> str:
     doc = d.loss_doc or {}
     out = []
+    idle = [r for r in doc.get("runs", []) if (r["board"], r["run"]) in d.idle]
     for r in doc.get("runs", []):
+        if (r["board"], r["run"]) in d.idle:
+            continue
         terms = (("received live", "frames_received"), ("recovered by resend", "frames_recovered_resend"),
                  ("recovered from the mirror", "frames_recovered_mirror"),
                  ("lost on the radio", "frames_lost"), ("dropped on the board", "frames_dropped_board"))
@@ -151,6 +162,12 @@ def _completeness(d: ReportData) -> str:
             a = r["angle"]
             out.append(f"<p>Loss against rotor angle: the worst sector is around "
                        f"{a['worst_deg']:.0f} degrees.</p>")
+    if idle:
+        out.append("<p class=\"note\">Frames sent while no run was started (status while "
+                   "idling), outside the accounts above: "
+                   + "; ".join(f"board {r['board']} run {r['run']}: {r['frames_expected']:,} "
+                               f"frame{'s' if r['frames_expected'] != 1 else ''}" for r in idle)
+                   + ".</p>")
     if d.loss_png:
         out.append("<p>Timeline of the frames that did not arrive live (disconnections shaded) "
                    "and the share not received live per angle sector:</p>"
@@ -164,6 +181,8 @@ def _clock_section(d: ReportData) -> str:
     rows = []
     for (b, r), c in sorted(d.clocks.items()):
         m = c.model
+        if m is None and (b, r) in d.idle:
+            continue
         if m is None:
             rows.append((b, r, "-", "-", "-", "-", "-", "; ".join(c.notes)))
             continue

@@ -5,7 +5,9 @@ ATT, MTU exchange and notifications over bumble's virtual link.
 
 The stack's notification queue is modelled as a bounded queue drained by a
 task: when it is full, gatts_notify raises OSError(ENOMEM) as a board's stack
-does, and the firmware retries later.
+does, and the firmware retries later. A radio model (sim.rotating_link) may
+sit in the stack: it times notifications and writes to connection events,
+loses some, stalls the link and ends the connection as a real radio would.
 """
 
 from __future__ import annotations
@@ -32,6 +34,7 @@ _IRQ_CENTRAL_DISCONNECT = 2
 _IRQ_GATTS_WRITE = 3
 _IRQ_MTU_EXCHANGED = 21
 QUEUE = 8  # notifications the "controller" holds before refusing more
+HCI_CONNECTION_TIMEOUT = 0x08  # Bluetooth Core Specification, Vol 1, Part F: error codes
 
 FIRMWARE = Path(__file__).resolve().parents[3] / "firmware"
 PROTOCOL = Path(__file__).resolve().parents[3] / "protocol"
@@ -39,11 +42,15 @@ PROTOCOL = Path(__file__).resolve().parents[3] / "protocol"
 
 def virtual_pair() -> tuple[Device, Device]:
     """Two bumble Devices (laptop, board) on software controllers joined by
-    bumble's in-process link: real HCI, L2CAP, ATT and GATT, no radio."""
+    bumble's in-process link: real HCI, L2CAP, ATT and GATT, no radio. The
+    controllers use LE Data Length Extension (251-byte link-layer payloads,
+    Bluetooth Core Specification v4.2), as boards sending 244-byte
+    notifications do."""
     link = LocalLink()
     devices = []
     for i, addr in enumerate(("F0:F0:F0:F0:F0:F0", "F1:F1:F1:F1:F1:F1")):
         ctrl = Controller(f"C{i}", link=link, public_address=addr)
+        ctrl.le_acl_data_packet_length = 251
         devices.append(Device(address=Address(addr), host=Host(ctrl, AsyncPipeSink(ctrl))))
     return devices[0], devices[1]
 
@@ -63,17 +70,22 @@ class UUID:
 class BLE:
     """The subset of MicroPython's bluetooth.BLE that firmware/link.py uses."""
 
-    def __init__(self, device: Device) -> None:
+    def __init__(self, device: Device, radio: Any = None) -> None:
         self.device = device
+        self.radio = radio  # sim.rotating_link.RotatingLink, or None: a perfect radio
         self._handler: Callable[[int, Any], None] | None = None
         self._chars: dict[int, gatt.Characteristic] = {}
         self._written: dict[int, bytearray] = {}
-        self._queue: deque[bytes] = deque()
+        self._queue: deque[tuple[bytes, list[int]]] = deque()  # notification, its run's seqs
         self._conn: Connection | None = None
         self._wake = asyncio.Event()
         self.notified = 0
         self.refused = 0
-        self._drainer = asyncio.get_running_loop().create_task(self._drain())
+        self._loop = asyncio.get_running_loop()
+        self._drainer = self._loop.create_task(self._drain())
+        self._watcher = self._loop.create_task(radio.watch()) if radio is not None else None
+        if radio is not None:
+            radio.on_timeout = self._supervision_timeout
         device.on(device.EVENT_CONNECTION, self._on_connection)
 
     # -- configuration --
@@ -117,28 +129,47 @@ class BLE:
 
     def gap_advertise(self, interval_us: int, adv_data: bytes | None = None,
                       resp_data: bytes | None = None, connectable: bool = True) -> None:
-        asyncio.get_running_loop().create_task(self.device.start_advertising(
-            advertising_data=adv_data, scan_response_data=resp_data,
-            advertising_interval_min=max(20.0, interval_us / 1000)))
+        def start() -> None:
+            self._loop.create_task(self.device.start_advertising(
+                advertising_data=adv_data, scan_response_data=resp_data,
+                advertising_interval_min=max(20.0, interval_us / 1000)))
+
+        now = self._loop.time()
+        at = self.radio.audible_at(now) if self.radio is not None else now
+        self._loop.call_at(at, start)
 
     def gatts_notify(self, conn: int, handle: int, data: Any = None) -> None:
         if len(self._queue) >= QUEUE:
             self.refused += 1
             raise OSError(errno.ENOMEM)
-        self._queue.append(bytes(data))
+        value = bytes(data)
+        self._queue.append((value, self.radio.handed(value) if self.radio is not None else []))
         self._wake.set()
 
     # -- the stack side --
     def _writer(self, h: int) -> Callable[[Connection, bytes], None]:
-        def write(connection: Connection, value: bytes) -> None:
+        def arrive(connection: Connection, value: bytes) -> None:
+            if connection is not self._conn:
+                return  # the connection ended before the write got across
             self._written.setdefault(h, bytearray()).extend(value)
             if self._handler is not None:
                 self._handler(_IRQ_GATTS_WRITE, (connection.handle, h))
+
+        def write(connection: Connection, value: bytes) -> None:
+            if self.radio is None:
+                return arrive(connection, value)
+            now = self._loop.time()
+            self.radio.wrote(value, now)
+            at = self.radio.write_arrives(now)
+            if at is not None:
+                self._loop.call_at(at, arrive, connection, value)
         return write
 
     def _on_connection(self, connection: Connection) -> None:
         self._conn = connection
         self._queue.clear()
+        if self.radio is not None:
+            self.radio.reset()
         connection.on(connection.EVENT_DISCONNECTION, self._on_disconnection)
         connection.on(connection.EVENT_CONNECTION_ATT_MTU_UPDATE,
                       lambda: self._irq(_IRQ_MTU_EXCHANGED, (connection.handle, connection.att_mtu)))
@@ -154,6 +185,11 @@ class BLE:
         if self._handler is not None:
             self._handler(event, data)
 
+    def _supervision_timeout(self) -> None:
+        """The radio went silent too long: the connection ends on both sides."""
+        if self._conn is not None:
+            self._loop.create_task(self._conn.disconnect(reason=HCI_CONNECTION_TIMEOUT))
+
     async def _drain(self) -> None:
         data_char = None
         while True:
@@ -162,7 +198,16 @@ class BLE:
             while self._queue and self._conn is not None:
                 if data_char is None:
                     data_char = next(c for c in self._chars.values() if c.properties & 0x10)
-                value = self._queue[0]
+                if self.radio is not None:
+                    conn = self._conn
+                    await asyncio.sleep(self.radio.next_event(self._loop.time()) - self._loop.time())
+                    if conn is not self._conn or not self._queue:
+                        continue  # the connection ended while waiting for its event
+                    if self.radio.lost(self._queue[0][1], self._loop.time()):
+                        self._queue.popleft()
+                        self.notified += 1
+                        continue
+                value = self._queue[0][0]
                 try:
                     await self.device.notify_subscriber(self._conn, data_char, value)
                 except Exception:  # the link went away mid-send: the board's queue is gone too
@@ -174,6 +219,8 @@ class BLE:
 
     def close(self) -> None:
         self._drainer.cancel()
+        if self._watcher is not None:
+            self._watcher.cancel()
 
 
 class BluetoothModule:
@@ -181,8 +228,8 @@ class BluetoothModule:
 
     UUID = UUID
 
-    def __init__(self, device: Device) -> None:
-        self._ble = BLE(device)
+    def __init__(self, device: Device, radio: Any = None) -> None:
+        self._ble = BLE(device, radio)
 
     def BLE(self) -> BLE:  # noqa: N802 - MicroPython's name
         return self._ble
@@ -194,7 +241,11 @@ class VirtualBoard:
     end-to-end tests. Board time moves only in step()."""
 
     def __init__(self, device: Device, config: dict[str, Any],
-                 on_frame: Callable[[Any, int], None] | None = None) -> None:
+                 on_frame: Callable[[Any, int], None] | None = None, hw: Any = None,
+                 mirror_path: str | None = None, radio: Any = None) -> None:
+        """hw: a simhw.SimHW to run on (default: one whose time moves in step());
+        mirror_path: where the mirror goes (default: the config's path);
+        radio: a sim.rotating_link.RotatingLink (default: a perfect radio)."""
         firmware_on_path()
         import config as fw_config
         from board import Board
@@ -202,28 +253,32 @@ class VirtualBoard:
         from simhw import SimHW
 
         cfg = fw_config.validate(config)
-        self.hw = SimHW()
+        self.hw = hw if hw is not None else SimHW()
         self.mirror = None
         if cfg["mirror"]["enabled"]:
             from mirror import Mirror
 
             m = cfg["mirror"]
-            self.mirror = Mirror(m["path"], m["max_bytes"], m["flush_every_ms"],
+            self.mirror = Mirror(mirror_path or m["path"], m["max_bytes"], m["flush_every_ms"],
                                  self.hw.ticks_ms())
             self.hw.on_frame = self.mirror.write
         if on_frame is not None:
             self.hw.on_frame = on_frame
         self.board = Board(cfg, self.hw, self.hw.next_run_id())
         self.board.mirror = self.mirror
-        self.bt = BluetoothModule(device)
+        self.bt = BluetoothModule(device, radio)
         self.board.link = Link(self.bt.BLE(), self.bt, cfg["name"], self.board.ring,
                                self.board.command_bytes)
 
-    def step(self, us: int) -> None:
-        self.hw.advance(us)
+    def poll(self) -> None:
+        """One turn of the board's main loop at the present board time."""
         self.board.poll()
         if self.mirror is not None:
             self.mirror.poll(self.hw.ticks_ms())
+
+    def step(self, us: int) -> None:
+        self.hw.advance(us)
+        self.poll()
 
     async def run(self, stop: asyncio.Event, step_us: int, pause_s: float = 0.0005) -> None:
         """Turn the main loop until stop is set, yielding to the link between turns."""
@@ -231,7 +286,23 @@ class VirtualBoard:
             self.step(step_us)
             await asyncio.sleep(pause_s)
 
+    async def run_paced(self, stop: asyncio.Event, every_s: float) -> None:
+        """Turn the main loop every `every_s` of loop time (the hardware follows
+        the loop's clock) until stop is set."""
+        loop = asyncio.get_running_loop()
+        done = loop.create_future()
+
+        def turn() -> None:  # a timer callback, not a task: the cheapest turn of the loop
+            if stop.is_set():
+                done.set_result(None)
+                return
+            self.poll()
+            loop.call_later(every_s, turn)
+
+        turn()
+        await done
+
     def close(self) -> None:
         self.bt.BLE().close()
         if self.mirror is not None:
-            self.mirror.flush()
+            self.mirror.close()

@@ -55,6 +55,7 @@ class RigConfig:
     ramp_s: float = 2.0  # coil off while the rotor changes speed
     quiet_s: float = 1.0  # and a little longer, so the first baseline sees a steady rotor
     pulse_s: float = 1.0  # each state of (+, off, -, off)
+    max_cycles: int = 7  # per block: the board's pulse program holds 32 steps (firmware/config.py)
     # apparatus (predict.RigInputs)
     inner_m: float = 0.02
     outer_m: float = 0.04
@@ -138,12 +139,16 @@ class RigSignals:
 
 def coil_program(cfg: RigConfig) -> tuple[np.ndarray, np.ndarray]:
     """Coil command times (s) and states: per block, off during the ramp and a
-    quiet spell, then (+, off, -, off) cycles that fit whole before the block ends."""
+    quiet spell, then (+, off, -, off) cycles that fit whole before the block
+    ends (at most max_cycles). Every block has the same pattern, so the board
+    runs it as one program repeated per block (sim.rig_board)."""
     times, states = [], []
     cycle = 4 * cfg.pulse_s
     for k in range(len(cfg.blocks_rad_s)):
         t = k * cfg.block_s + cfg.ramp_s + cfg.quiet_s
-        while t + cycle <= (k + 1) * cfg.block_s + 1e-9:
+        for _ in range(cfg.max_cycles):
+            if t + cycle > (k + 1) * cfg.block_s + 1e-9:
+                break
             for j, st in enumerate((1, 0, -1, 0)):
                 times.append(t + j * cfg.pulse_s)
                 states.append(st)
@@ -219,7 +224,7 @@ def _counts(x: np.ndarray, scale: float) -> np.ndarray:
 
 
 # ---- frames --------------------------------------------------------------------------
-def _streams(cfg: RigConfig) -> list[tuple[Any, ...]]:
+def stream_entries(cfg: RigConfig) -> list[tuple[Any, ...]]:
     us = TICK_HZ // cfg.rate_hz
     out = [(0, H, 0, us, cfg.cap_scale, 0.0, "cap_amp", "V"),
            (1, H, 0, us, cfg.current_scale, 0.0, "coil_current", "A")]
@@ -244,7 +249,7 @@ def timed_frames(cfg: RigConfig, sig: RigSignals | None = None, extra: Sequence[
     replies) join at their ticks, `status` sets the queue figures of each STATUS."""
     sig = sig if sig is not None else signals(cfg)
     enc = wire.Encoder(cfg.board, cfg.run)
-    streams = _streams(cfg)
+    streams = stream_entries(cfg)
     per = wire.max_samples(H)
     jobs: list[tuple[int, int, tuple[Any, ...]]] = []  # (send tick, order, job)
     data = [sig.cap_counts, sig.current_counts] + ([sig.gyro_counts] if cfg.gyro else [])

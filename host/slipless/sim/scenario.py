@@ -1,43 +1,44 @@
-"""The demo's whole run as the recorder would have captured it, with its truth.
+"""The demo's whole run: the board's own firmware, a radio, the recorder.
 
-Scenario of our own (invented data): the physics rig (sim.rig: a rotating
+Scenario of our own (invented data). The physics rig (sim.rig: a rotating
 coaxial capacitor in a pulsed solenoid, charge amplifier, coil current, gyro)
-on a board whose clock runs `skew_ppm` fast (sim.clocks). Its frames meet:
-- the board's send queue overflowing once: `overflow_frames` frames in a row
-  never leave the board, and the STATUS frames after it count them
-  (firmware/ring.py's rule: a frame x dropped from a queue of Q is counted by
-  every STATUS b with x <= b - 1 - Q);
-- a rotating link (sim.shadow's rule): frames sent while the antenna faces a
-  dead sector of the turn are lost, a bursty loss once per turn, plus a rare
-  loss elsewhere;
-- one disconnection: nothing gets through for `down_s`; after reconnecting
-  the recorder asks for the missing range and the board resends what its ring
-  of `ring_frames` still holds;
-- one-sided receive delays and stalls (sim.clocks), and a PING every second
-  answered by a SYNC frame, so `align` can fit the clock.
-The board also keeps every frame it built in its mirror file. Nothing here
-runs the firmware itself: the frames are built as the firmware would build
-them (protocol/wire.py's encoder, as sim.rig does).
+feeds the channels of the simulated hardware layer, and the firmware
+(firmware/board.py, link.py, mirror.py, unchanged) samples it, drives the coil
+program and radios its frames through MicroPython's `bluetooth` API provided
+by a bumble Device (sim.ble_board). The board's clock runs `skew_ppm` fast.
+Between the two bumble Devices the radio model (sim.rotating_link) loses what
+is sent at the antenna's dead angle (once per turn), stalls the link once so
+the board's send queue overflows, and drops the connection once. On the
+laptop side `slipless record`'s own Recorder, on the bumble back end, starts
+the run, pings every second, asks for gaps and reconnects; it writes the
+capture. The board keeps every frame in its mirror file.
+
+Everything runs on one asyncio loop in simulated time (sim.virtual_time), so
+the run takes as long as its work, not its length, and a seed fixes it.
 """
 
 from __future__ import annotations
 
-import functools
-import json
-import math
-import random
+import asyncio
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
-from slipless.capture import EVENT, RX, TX
-from slipless.protocol import wire
-from slipless.sim import rig
-from slipless.sim.clock_capture import ANCHOR_NS, SEND_AFTER_US, Record, _write
-from slipless.sim.clocks import TICK_HZ, ClockSim, deliver
+from slipless import __version__
+from slipless.capture import CaptureWriter
+from slipless.record import Progress, Recorder, RecordOptions
+from slipless.sim import rig, rig_board, virtual_time
+from slipless.sim.ble_board import VirtualBoard, firmware_on_path, virtual_pair
+from slipless.sim.clocks import ClockSim
+from slipless.sim.rotating_link import LinkPlan, RotatingLink, Truth
+from slipless.transports.bumble_central import BumbleCentral
 
-HOST_BOARD = 0xFFFF  # the laptop's own encoder (commands)
+BOOT_S = 5000.0  # laptop monotonic time when the board boots
+WALL_OFFSET_NS = 1_790_000_000_000_000_000  # the simulated laptop's wall minus monotonic clock
+RAW_START_US = (1 << 30) - 20_000_000  # the board's ticks_us() at boot: it wraps 20 s in
 
 
 @dataclass
@@ -47,31 +48,50 @@ class ScenarioConfig:
     skew_ppm: float = 23.0
     dead_from_deg: float = 200.0  # the antenna's dead sector of the turn
     dead_to_deg: float = 236.0
-    elsewhere: float = 0.002  # share of frames lost at other angles
-    overflow_at: float = 0.30  # where in the run (fraction) the queue overflows
-    overflow_frames: int = 14
-    queue_frames: int = 8  # Q: the board's send queue
-    down_at: float = 0.62  # where in the run the link drops
+    elsewhere: float = 0.002  # share of notifications lost at other angles
+    stall_at: float = 0.30  # where in the run (fraction) the link stalls once
+    stall_s: float = 1.6  # long enough for the board's send queue to overflow
+    queue_frames: int = 8  # the board's send queue
+    down_at: float = 0.62  # where in the run the link goes silent, then drops
     down_s: float = 3.0
     ring_frames: int = 48  # frames the board can still resend
+    poll_s: float = 0.0008  # one turn of the board's main loop
 
 
 @dataclass
 class Scenario:
     cfg: ScenarioConfig
     rig: rig.RigConfig
-    clock: ClockSim
+    clock: ClockSim  # the board clock's truth
     capture: Path
     mirror: Path
-    frames: int = 0
-    board_dropped: list[int] = field(default_factory=list)
-    shadow_lost: list[int] = field(default_factory=list)
-    down: list[int] = field(default_factory=list)  # seqs sent while the link was down
-    resent: list[int] = field(default_factory=list)
-    down_board_s: tuple[float, float] = (0.0, 0.0)
+    truth: Truth = field(default_factory=Truth)
+    frames: int = 0  # frames the board built in the run (END's count)
+    board_dropped: int = 0  # the board's own count of frames that left its send queue unsent
+    queue_dropped: set[int] = field(default_factory=set)  # which frames those were
     pings: int = 0
+    progress: Progress = field(default_factory=Progress)
+    coil_ms: float = float("nan")  # largest gap between the board's coil events and the plan
+    run: int = 0
+    run_start_s: float = 0.0  # board time the run began (s since boot)
+    stall_board_s: tuple[float, float] = (0.0, 0.0)  # run seconds: the link stalled
+    down_board_s: tuple[float, float] = (0.0, 0.0)  # run seconds: silent, then disconnected
 
-    def truth(self) -> dict[str, float]:
+    def board_s(self, loop_s: float) -> float:
+        """Run seconds (board clock) at a laptop loop time."""
+        return float(self.clock.board_s(np.array([loop_s]))[0]) - self.run_start_s
+
+    def truth_terms(self) -> dict[str, int]:
+        """The loss account's terms from what really went over the air (radio only)."""
+        t = self.truth
+        every = set(range(self.frames))
+        resent = {s for s, at in t.delivered.items() if s in every and t.asked.get(s, 1e30) <= at}
+        never = every - set(t.delivered)
+        return {"received": len(every & set(t.delivered)) - len(resent), "resent": len(resent),
+                "lost": len(never - self.queue_dropped), "dropped": len(never & self.queue_dropped),
+                "lost_dead": len(never & t.lost_dead), "lost_random": len(never & t.lost_random)}
+
+    def truth_values(self) -> dict[str, float]:
         return {**self.rig.truth(), "skew_ppm": self.clock.skew_ppm}
 
 
@@ -80,104 +100,111 @@ def rig_config(cfg: ScenarioConfig) -> rig.RigConfig:
     return rig.RigConfig(seed=cfg.seed, block_s=float(max(10, round(cfg.seconds / 6))))
 
 
-def angle_deg(rc: rig.RigConfig, t_s: np.ndarray) -> np.ndarray:
-    """True rotor angle (degrees, 0 at the start) at board seconds `t_s`."""
+def turned_deg(rc: rig.RigConfig) -> np.ndarray:
+    """The rotor's true angle (degrees) at each millisecond of the run."""
     grid = np.arange(0.0, rc.seconds + 0.002, 0.001)
-    turned = np.concatenate([[0.0], np.cumsum(rig.rotation(rc, grid[:-1]) * 0.001)])
-    return np.degrees(np.interp(t_s, grid, turned))
+    return np.degrees(np.concatenate([[0.0], np.cumsum(rig.rotation(rc, grid[:-1]) * 0.001)]))
 
 
-def _sync(request: int, t1_ns: int, t2: int, t3: int, enc: wire.Encoder) -> int:
-    return enc.sync(request, t1_ns, t2, t3)
-
-
-def _leaves(rc: rig.RigConfig, tick: int, frame: bytes) -> int:
-    """When a frame leaves the board: a SAMPLES frame SEND_AFTER_US after its
-    last sample (sim.rig orders them by the next sample's tick), others at their tick."""
-    body = wire.cobs_decode(frame[:-1])
-    if body[0] & 0x0F != wire.SAMPLES:
-        return tick
-    period = TICK_HZ // (rc.gyro_rate_hz if body[wire.HEADER_SIZE] == 2 else rc.rate_hz)
-    return tick - period + SEND_AFTER_US
-
-
-def _status(drops: list[int], q: int, seq: int) -> tuple[int, int]:
-    counted = sum(1 for x in drops if x <= seq - 1 - q)
-    return (q if drops and seq > drops[0] else 4), counted
-
-
-def build(folder: Path, cfg: ScenarioConfig) -> Scenario:
-    """Write `run.slcap` (the capture) and `run.mirror` into `folder`."""
+def build(folder: Path, cfg: ScenarioConfig,
+          progress: Callable[[float], None] | None = None) -> Scenario:
+    """Run the scenario; write `run.slcap` (the capture) and `run.mirror` into
+    `folder`. `progress` gets the share of the run done, now and then."""
     rc = rig_config(cfg)
-    clock = ClockSim(seconds=rc.seconds, skew_ppm=cfg.skew_ppm, start_tick=0, offset_s=5000.0,
-                     floor_s=0.004, write_floor_s=0.004, delay_mean_s=0.006, seed=cfg.seed)
-    rng = np.random.default_rng(cfg.seed + 10)
-    sc = Scenario(cfg, rc, clock, folder / "run.slcap", folder / "run.mirror")
-    d0 = cfg.down_at * rc.seconds
-    sc.down_board_s = (d0, d0 + cfg.down_s)
-    down_lap = clock.laptop_s(np.array(sc.down_board_s) * TICK_HZ)
+    sc = Scenario(cfg, rc, ClockSim(seconds=rc.seconds, skew_ppm=cfg.skew_ppm, start_tick=0),
+                  folder / "run.slcap", folder / "run.mirror")
+    sc.mirror.unlink(missing_ok=True)  # the board's mirror appends
+    return virtual_time.run(_session(sc, progress), start_s=BOOT_S)
 
-    # pings every second (none while the link is down), answered by SYNC frames
-    host = wire.Encoder(HOST_BOARD, 0)
-    records: list[Record] = []
-    t1 = clock.offset_s + np.arange(0.5, rc.seconds - 1.0, clock.ping_every_s)
-    t1 = t1[(t1 < down_lap[0]) | (t1 > down_lap[1] + 0.2)] + rng.uniform(0, 0.01, 1)
-    arrive = deliver(rng, clock, t1, clock.write_floor_s, ordered=False)
-    t2 = np.ceil(clock.board_s(arrive) * TICK_HZ).astype(np.int64)
-    extra = []
-    for k in range(t1.size):
-        t1_ns = int(math.floor(t1[k] * 1e9))
-        records.append((t1_ns, TX, 0, host.frame(host.ping(k + 1, t1_ns))))
-        t3 = int(t2[k]) + clock.turnaround_us
-        extra.append((t3, functools.partial(_sync, k + 1, t1_ns, int(t2[k]), t3)))
-    sc.pings = t1.size
 
+async def _session(sc: Scenario, progress: Callable[[float], None] | None) -> Scenario:
+    cfg, rc = sc.cfg, sc.rig
+    loop = asyncio.get_running_loop()
     sig = rig.signals(rc)
-    first = list(rig.timed_frames(rc, sig, extra))  # once for the seqs and their ticks
-    ticks = np.array([t for t, _ in first], dtype=np.int64)
-    start = int(np.searchsorted(ticks, cfg.overflow_at * rc.seconds * TICK_HZ))
-    sc.board_dropped = list(range(start, start + cfg.overflow_frames))
-    status = functools.partial(_status, sc.board_dropped, cfg.queue_frames)
-    built = list(rig.timed_frames(rc, sig, extra, status))
-    frames = [f for _, f in built]
-    sc.frames = len(frames)
-    sc.mirror.write_bytes(b"".join(frames))
+    rate = 1.0 - cfg.skew_ppm * 1e-6  # laptop seconds per board second (sim.clocks' model)
+    laptop_dev, board_dev = virtual_pair()
+    await laptop_dev.power_on()
+    await board_dev.power_on()
+    boot = sc.clock.offset_s = loop.time()  # board time 0: its clock starts with the hardware
 
-    t_s = ticks / TICK_HZ
-    dead = np.mod(angle_deg(rc, t_s), 360.0)
-    dead = (dead >= cfg.dead_from_deg) & (dead < cfg.dead_to_deg)
-    down = (t_s >= sc.down_board_s[0]) & (t_s < sc.down_board_s[1])
-    drop = set(sc.board_dropped)
-    pick = random.Random(cfg.seed + 20)
-    live: list[tuple[int, bytes]] = []
-    for seq, (tick, frame) in enumerate(built):
-        if seq in drop:
-            continue
-        if down[seq]:
-            sc.down.append(seq)
-        elif dead[seq] or pick.random() < cfg.elsewhere:
-            sc.shadow_lost.append(seq)
-        else:
-            live.append((tick, frame))
-    leave = np.array([_leaves(rc, t, f) for t, f in live], dtype=np.int64)
-    rx = deliver(rng, clock, clock.laptop_s(leave), clock.floor_s)
-    records += [(int(math.ceil(t * 1e9)), RX, 0, f) for t, (_, f) in zip(rx, live)]
+    def board_us() -> int:
+        return RAW_START_US + int((loop.time() - boot) / rate * 1e6)
 
-    # the link drops (supervision timeout after the last packet), comes back, asks for the gap
-    gone_ns = int(down_lap[0] * 1e9) + 500_000_000
-    back_ns = int(down_lap[1] * 1e9)
-    records.append((gone_ns, EVENT, 0, json.dumps({"event": "disconnected",
-                                                   "reason": "supervision timeout"}).encode()))
-    records.append((back_ns, EVENT, 0, json.dumps({"event": "connected", "mtu": 247}).encode()))
-    head = int(np.searchsorted(ticks, sc.down_board_s[1] * TICK_HZ))
-    held = [s for s in sc.down if s >= head - cfg.ring_frames]
-    sc.resent = held
-    if held:
-        after = [r[0] for r in records if r[1] == RX and r[0] > back_ns]
-        t = max(back_ns + 50_000_000, min(after, default=back_ns) + 10_000_000)  # once live again
-        records.append((t, TX, 0, host.frame(host.resend(t1.size + 1, held[0], held[-1]))))
-        for seq in held:
-            t += 2_000_000
-            records.append((t, RX, 0, frames[seq]))
-    _write(sc.capture, records, [rc.board], ANCHOR_NS)
+    firmware_on_path()
+    from board import board_time_us
+    from simhw import SimHW
+
+    hw = SimHW(now_us=board_us)
+    rig_board.wire_channels(hw, sig)
+    angles = turned_deg(rc)
+    cap_stream = hw.channels["cap_amp"]
+
+    def angle(_now: float) -> float:  # the rotor turns with the run: sample k is at k ms
+        return float(angles[min(cap_stream.k, angles.size - 1)])
+
+    t0 = boot
+    plan = LinkPlan(seed=cfg.seed, dead_from_deg=cfg.dead_from_deg, dead_to_deg=cfg.dead_to_deg,
+                    elsewhere=cfg.elsewhere, stall_at_s=t0 + cfg.stall_at * rc.seconds,
+                    stall_s=cfg.stall_s, down_at_s=t0 + cfg.down_at * rc.seconds, down_s=cfg.down_s)
+    vb: Any = None
+    radio = RotatingLink(plan, angle, lambda: vb.board.run_id if vb is not None else -1)
+    vb = VirtualBoard(board_dev, rig_board.firmware_config(rc, cfg.ring_frames, cfg.queue_frames),
+                      hw=hw, mirror_path=str(sc.mirror), radio=radio)
+    _watch_queue(vb.board.ring, sc.queue_dropped)
+    clock = virtual_time.LoopClock(WALL_OFFSET_NS)
+    meta = {"slipless": __version__, "created_wall_ns": clock.wall_ns(),
+            "created_mono_ns": clock.mono_ns(), "host": "simulation", "backend": "bumble",
+            "sources": [{"target": ""}], "sync_every_s": 1.0}
+    writer = CaptureWriter(sc.capture, meta, clock=clock)
+
+    def on_progress(p: Progress) -> None:
+        if progress is not None:
+            progress(min(1.0, cap_stream.k / max(1, len(cap_stream.values))))
+
+    rec = Recorder(BumbleCentral(laptop_dev, None, scan_s=10), writer,
+                   RecordOptions(label="demo", ping_every_s=1.0, drain_s=3.0), on_progress)
+    stop = asyncio.Event()
+    board_task = loop.create_task(vb.run_paced(stop, cfg.poll_s))
+    try:
+        sc.progress = await rec.run()
+    finally:
+        stop.set()
+        await board_task
+        writer.close()
+        vb.close()
+    sc.run = vb.board.run_id
+    s0 = vb.board.sampler.streams[0]
+    sc.run_start_s = (board_time_us(s0.hi, s0.lo) - s0.count * s0.period) / 1e6
+    sc.stall_board_s = sc.board_s(plan.stall_at_s), sc.board_s(plan.stall_at_s + plan.stall_s)
+    sc.down_board_s = sc.board_s(plan.down_at_s), sc.board_s(plan.down_at_s + plan.down_s)
+    sc.frames = vb.board.framer.seq
+    sc.board_dropped = vb.board.ring.dropped
+    sc.truth = radio.truth
+    sc.pings = sum(1 for _ in _pings(sc.capture))
     return sc
+
+
+def _watch_queue(ring: Any, dropped: set[int]) -> None:
+    """Note which frames the board's ring pushes out of its send queue unsent
+    (firmware/ring.py: only commit() moves `send` for that reason)."""
+    commit = ring.commit
+
+    def watched(seq: int, length: int) -> None:
+        before = ring.send
+        commit(seq, length)
+        if ring.send > before:
+            dropped.update(range(before, ring.send))
+
+    ring.commit = watched
+
+
+def _pings(path: Path) -> Any:
+    from slipless.capture import TX, CaptureReader
+    from slipless.protocol import wire
+
+    with path.open("rb") as f:
+        for r in CaptureReader(f):
+            if r.type == TX:
+                body = wire.cobs_decode(r.payload[:-1])
+                if body[wire.HEADER_SIZE] & 0x7F == wire.CMD_PING:
+                    yield r
