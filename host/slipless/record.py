@@ -55,6 +55,7 @@ class _LiveSink(NullSink):
         self.not_held: set[tuple[int, int, int]] = set()  # (board, run, seq) the board lost
         self.last_error = ""
         self.pulled = False  # the ACK that follows the last byte of a pulled mirror
+        self.stop_answered = False  # the board's ACK (or ERROR) for STOP
         self.refused: list[tuple[int, int, int]] = []  # ERROR auth: (opcode, floor, why)
 
     def status(self, run: RunState, seq: int, fields: dict[str, Any]) -> None:
@@ -65,7 +66,10 @@ class _LiveSink(NullSink):
             self.ended = True
         elif kind == wire.ACK and fields["opcode"] == wire.CMD_PULL:
             self.pulled = True
-        elif kind == wire.ERROR:
+        if (fields.get("opcode", 0) & 0x7F == wire.CMD_STOP
+                and (kind == wire.ACK or (kind == wire.ERROR and fields["code"] != wire.ERR_AUTH))):
+            self.stop_answered = True  # (a refused seal is sent again: not an answer yet)
+        if kind == wire.ERROR:
             if fields["code"] == wire.ERR_AUTH:
                 self.refused.append((fields["opcode"], fields["detail_a"], fields["detail_b"]))
             if fields["code"] == wire.ERR_NOT_HELD:
@@ -274,7 +278,9 @@ class Recorder:
             await self._request_resends(self._now())
             if self.opts.signer is not None and self.sink.refused:
                 await self._after_refusals()
-            if self.sink.ended and not any(r.gaps for r in self.decoder.runs.values()):
+            # STOP turns the coil off: hang up only once the board has answered it
+            if (self.sink.ended and self.sink.stop_answered
+                    and not any(r.gaps for r in self.decoder.runs.values())):
                 break
             await asyncio.sleep(0.05)
         await self.central.disconnect()

@@ -1,18 +1,17 @@
 """`slipless record` against a keyed board over bumble's virtual link: the
 board's own firmware (SimHW) refuses the recorder's unsealed START and STOP,
 takes sealed ones, and after a reboot past its counter reserve the recorder
-jumps past the floor the board names and is taken on the second try."""
+jumps past the floor the board names and is taken on the second try. In
+simulated time (sim.virtual_time): the same every run, whatever the load."""
 
 from __future__ import annotations
 
 import asyncio
 from pathlib import Path
 
-import pytest
-
 from slipless import capture, keys
 from slipless.record import Recorder, RecordOptions
-from slipless.sim import ble_board
+from slipless.sim import ble_board, virtual_time
 from slipless.transports.bumble_central import BumbleCentral
 
 KEY = bytes(range(32))
@@ -31,7 +30,7 @@ async def session(tmp: Path, signer: keys.Signer | None, floor: int = 0) -> tupl
     vb = ble_board.VirtualBoard(board_dev, CONFIG)
     vb.board.auth.last = vb.board.auth.reserve = floor  # as after a reboot past a reserve
     stop = asyncio.Event()
-    writer = capture.CaptureWriter(tmp / "run.slcap", {})
+    writer = capture.CaptureWriter(tmp / "run.slcap", {}, clock=virtual_time.LoopClock(0))
     rec = Recorder(BumbleCentral(laptop_dev, None, scan_s=5), writer,
                    RecordOptions(duration_s=1.5, ping_every_s=0.5, drain_s=0.5, signer=signer))
     task = asyncio.create_task(vb.run(stop, 1000))
@@ -43,18 +42,16 @@ async def session(tmp: Path, signer: keys.Signer | None, floor: int = 0) -> tupl
     return rec, progress, vb
 
 
-@pytest.mark.asyncio
-async def test_unsealed_commands_refused(tmp_path: Path) -> None:
-    rec, progress, vb = await session(tmp_path, None)
+def test_unsealed_commands_refused(tmp_path: Path) -> None:
+    rec, progress, vb = virtual_time.run(session(tmp_path, None))
     assert rec.auth_error == "start: missing"
     assert vb.hw.runs == 1  # the boot run only: START changed nothing
     assert not vb.board.running
 
 
-@pytest.mark.asyncio
-async def test_sealed_commands_taken_and_counter_jumps_after_reboot(tmp_path: Path) -> None:
+def test_sealed_commands_taken_and_counter_jumps_after_reboot(tmp_path: Path) -> None:
     signer = keys.Signer(KEY, tmp_path / "board-12.counter")
-    rec, progress, vb = await session(tmp_path, signer, floor=1000)
+    rec, progress, vb = virtual_time.run(session(tmp_path, signer, floor=1000))
     assert rec.auth_error == ""
     assert vb.hw.runs == 2 and not vb.board.running  # started, then stopped by the sealed STOP
     assert vb.board.auth.last > 1000 and signer.counter == vb.board.auth.last

@@ -2,7 +2,8 @@
 link.py on the simulated hardware layer, with MicroPython's `bluetooth` API
 provided by a bumble Device) talks over bumble's virtual link to `slipless
 record` using the bumble back end. Real GATT/ATT, MTU exchange and
-notifications carry the data; the link is cut mid-run."""
+notifications carry the data; the link is cut mid-run. Both run in simulated
+time (sim.virtual_time): the same every run, whatever the machine's load."""
 
 from __future__ import annotations
 
@@ -10,12 +11,10 @@ import asyncio
 import json
 from pathlib import Path
 
-import pytest
-
 from slipless import capture
 from slipless.cli import decode_files
 from slipless.record import Recorder, RecordOptions
-from slipless.sim import ble_board
+from slipless.sim import ble_board, virtual_time
 from slipless.transports.bumble_central import BumbleCentral
 
 CONFIG = {
@@ -43,7 +42,8 @@ async def session(tmp: Path, cut_after_s: float, outage_s: float) -> dict:
                                 on_frame=lambda slot, n: produced.append(bytes(slot[:n])))
     stop = asyncio.Event()
 
-    writer = capture.CaptureWriter(tmp / "run.slcap", {"backend": "bumble", "sources": [{}]})
+    writer = capture.CaptureWriter(tmp / "run.slcap", {"backend": "bumble", "sources": [{}]},
+                                   clock=virtual_time.LoopClock(0))
     central = BumbleCentral(laptop_dev, None, scan_s=5)
     rec = Recorder(central, writer, RecordOptions(duration_s=4.0, ping_every_s=0.5,
                                                   backoff_s=(outage_s,), drain_s=2.0))
@@ -70,9 +70,8 @@ async def session(tmp: Path, cut_after_s: float, outage_s: float) -> dict:
             "commands": rec.commands_sent}
 
 
-@pytest.mark.asyncio
-async def test_record_with_cut_link_then_merge_mirror(tmp_path: Path) -> None:
-    out = await session(tmp_path, cut_after_s=1.2, outage_s=0.6)
+def test_record_with_cut_link_then_merge_mirror(tmp_path: Path) -> None:
+    out = virtual_time.run(session(tmp_path, cut_after_s=1.2, outage_s=0.6))
     prog = out["progress"]
     assert prog.reconnects == 1 and prog.state == "done"
     # The board's own truth: every frame it built, by (run, seq).
@@ -111,14 +110,15 @@ async def pull_session(tmp: Path) -> None:
         "enabled": True, "path": "board.mirror", "max_bytes": 1 << 20, "flush_every_ms": 100}))
     stop = asyncio.Event()
     task = asyncio.create_task(vb.run(stop, SIM_STEP_US))
-    w1 = capture.CaptureWriter(tmp / "run.slcap", {})
+    clock = virtual_time.LoopClock(0)
+    w1 = capture.CaptureWriter(tmp / "run.slcap", {}, clock=clock)
     await Recorder(BumbleCentral(laptop_dev, None), w1,
                    RecordOptions(duration_s=1.5, ping_every_s=0.5)).run()
     w1.close()
     await asyncio.sleep(0.2)
     from slipless.record_cli import pull_into
 
-    w2 = capture.CaptureWriter(tmp / "pull.slcap", {})
+    w2 = capture.CaptureWriter(tmp / "pull.slcap", {}, clock=clock)
     await pull_into(Recorder(BumbleCentral(laptop_dev, None), w2, RecordOptions(pull=True)),
                     w2, tmp / "pulled.mirror")
     stop.set()
@@ -126,10 +126,9 @@ async def pull_session(tmp: Path) -> None:
     vb.close()
 
 
-@pytest.mark.asyncio
-async def test_pull_mirror_over_the_link(tmp_path: Path, monkeypatch) -> None:
+def test_pull_mirror_over_the_link(tmp_path: Path, monkeypatch) -> None:
     monkeypatch.chdir(tmp_path)
-    await pull_session(tmp_path)
+    virtual_time.run(pull_session(tmp_path))
     board_copy = decode_files([tmp_path / "board.mirror"], tmp_path / "a", "csv", None)
     pulled = decode_files([tmp_path / "pulled.mirror"], tmp_path / "b", "csv", None)
     for key, run in board_copy.runs.items():
