@@ -12,6 +12,7 @@ Prints one line per figure, then one JSON line with every figure:
   align_p99_ms, align_lsq_p99_ms, align_err_over_u, align_seconds_1M   clock fit (bench_align.py)
   fuzz_cases, fuzz_false_accepts, fuzz_intact_recovered   corrupted frames read (bench_fuzz.py)
   demo_seconds          wall time of `slipless demo` (bench_demo.py)
+  demo_sim_seconds      its firmware + radio + recorder stage, 180 s simulated (bench_demo.py)
 """
 
 from __future__ import annotations
