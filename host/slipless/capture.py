@@ -19,6 +19,7 @@ import struct
 import time
 import zlib
 from collections.abc import Iterator
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, BinaryIO
@@ -73,7 +74,9 @@ class ReadStats:
 
 
 class CaptureWriter:
-    """Append records; flush and fsync every `sync_every_s` seconds."""
+    """Append records; every `sync_every_s` seconds hand them to the OS (flush)
+    and have a helper thread fsync them, so a slow disk never stalls the loop
+    that takes notifications. close() flushes and fsyncs before it returns."""
 
     def __init__(self, path: Path, meta: dict[str, Any], sync_every_s: float = 1.0,
                  clock: Any = None) -> None:
@@ -84,6 +87,8 @@ class CaptureWriter:
         self._f.write(_FILE_HEAD.pack(MAGIC, VERSION, len(raw), zlib.crc32(raw)) + raw)
         self.sync_every_s = sync_every_s
         self._last_sync = time.monotonic()
+        self._fsync: Future[None] | None = None
+        self._syncer: ThreadPoolExecutor | None = None
         self.records = 0
         self.bytes = self._f.tell()
 
@@ -105,13 +110,21 @@ class CaptureWriter:
         self.write(EVENT, source, json.dumps({"event": name, **fields}).encode())
 
     def sync(self) -> None:
+        """Flush to the OS now; fsync in the background (one at a time)."""
         self._f.flush()
-        os.fsync(self._f.fileno())
         self._last_sync = time.monotonic()
+        if self._fsync is not None and not self._fsync.done():
+            return  # the one running covers what was flushed before it began; the next sync the rest
+        if self._syncer is None:
+            self._syncer = ThreadPoolExecutor(1, thread_name_prefix="capture-fsync")
+        self._fsync = self._syncer.submit(os.fsync, self._f.fileno())
 
     def close(self) -> None:
         if not self._f.closed:
-            self.sync()
+            self._f.flush()
+            if self._syncer is not None:
+                self._syncer.shutdown(wait=True)
+            os.fsync(self._f.fileno())
             self._f.close()
 
 

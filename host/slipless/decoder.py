@@ -220,6 +220,9 @@ class Decoder:
         self.flush_bytes = flush_bytes
         self._unflushed = 0
         self.sink: Sink = sink if sink is not None else NullSink()
+        # A sink that keeps the NullSink's samples()/timing() wants neither: skip their work.
+        self._wants_samples = getattr(type(self.sink), "samples", None) is not NullSink.samples
+        self._wants_timing = getattr(type(self.sink), "timing", None) is not NullSink.timing
         self.deframer = FastDeframer()
         self._deframers: dict[int, FastDeframer] = {0: self.deframer}
         self.arrival = STREAM
@@ -258,7 +261,7 @@ class Decoder:
         runs = self.runs
         unpack = _SAMPLES_HEAD.unpack_from
         frame_sink = self.sink.frame
-        timed = arrival.mono_ns >= 0
+        timed = arrival.mono_ns >= 0 and self._wants_timing
         origin = arrival.origin
         batches = self._batches
         for body, offset, damaged in deframer.feed(data):
@@ -529,6 +532,10 @@ class Decoder:
             if not batch.seqs:
                 continue
             info = batch.info
+            if not self._wants_samples:  # count them, nothing more
+                batch.run.samples += sum(map(len, batch.payloads)) // info.dtype.itemsize
+                batch.seqs, batch.ticks, batch.payloads = [], [], []
+                continue
             raw = np.frombuffer(b"".join(batch.payloads), dtype=info.dtype)
             counts = np.array(list(map(len, batch.payloads)), dtype=np.int64) // info.dtype.itemsize
             seq = np.repeat(np.asarray(batch.seqs, dtype=np.int64), counts)

@@ -20,6 +20,8 @@ from slipless.decoder import Arrival, Decoder, NullSink, RunState
 from slipless.protocol import wire
 from slipless.transports import Central, LinkError
 
+FEED_BYTES = 4096  # the live decoder takes notifications in batches of about this size
+
 # state -> the states it may move to
 STATES: dict[str, tuple[str, ...]] = {
     "idle": ("connecting", "done"),
@@ -102,6 +104,9 @@ class Recorder:
         self.clock = capture.clock  # the laptop's clocks (simulated ones in simulations)
         self.sink = _LiveSink()
         self.decoder = Decoder(self.sink, flush_bytes=1 << 16)
+        self._pending: list[bytes] = []  # notifications not yet decoded (see _feed)
+        self._pending_bytes = 0
+        self._pending_at = (0, 0)
         self.state = "idle"
         self.progress = Progress()
         self._enc = wire.Encoder(opts.board, 0)
@@ -131,10 +136,24 @@ class Recorder:
     # ---- link callbacks ------------------------------------------------------------
     def _on_data(self, data: bytes) -> None:
         mono, wall = self.clock.mono_ns(), self.clock.wall_ns()
-        self.capture.write(RX, 0, data, mono, wall)
-        self.decoder.feed(data, Arrival(0, mono, wall, "radio"))
+        self.capture.write(RX, 0, data, mono, wall)  # every notification with its own time
+        self._pending.append(data)
+        self._pending_bytes += len(data)
+        self._pending_at = (mono, wall)
+        if self._pending_bytes >= FEED_BYTES:
+            self._feed()
+
+    def _feed(self) -> None:
+        """Decode what came since the last call, in one piece: the live decoder only
+        steers (gaps, replies, progress), so one arrival time per batch will do."""
+        if self._pending:
+            data = b"".join(self._pending)
+            self._pending.clear()
+            self._pending_bytes = 0
+            self.decoder.feed(data, Arrival(0, *self._pending_at, "radio"))
 
     def _on_disconnect(self, why: str) -> None:
+        self._feed()  # what came before the drop belongs to the old connection
         self.capture.event(0, "disconnected", reason=why)
         self.decoder.reset_source(0)
         self._dropped.set()
@@ -210,6 +229,7 @@ class Recorder:
             await self._finish()
         if self.state != "done":
             self._move("done")
+        self._feed()
         self.decoder.finish()
         self._update()
         return self.progress
@@ -243,9 +263,11 @@ class Recorder:
                 await asyncio.wait_for(self._dropped.wait(), 0.05)
             except TimeoutError:
                 pass
+            self._feed()  # so the loop's test sees an END or ACK that just came
 
     async def _request_resends(self, now: float) -> None:
         """Ask again for every gap seen (each at most once per second)."""
+        self._feed()
         lost = self.sink.not_held
         for run in self.decoder.runs.values():
             for first, last, _ in run.gaps:
@@ -287,6 +309,7 @@ class Recorder:
 
     def _update(self) -> None:
         """Refresh the progress figures (and the live status line)."""
+        self._feed()
         p = self.progress
         runs = list(self.decoder.runs.values())
         p.frames = sum(r.received for r in runs)

@@ -25,8 +25,9 @@ from slipless.sim.board import SimConfig, simulate
 from slipless.sim.channel import notifications
 from slipless.transports.bumble_central import BumbleCentral
 
-SECONDS = 20.0  # simulated run length pushed through the link
-REPEATS = 3
+SECONDS = 600.0  # simulated run length pushed through the link (long enough that
+# the transfer, well under a second, outlasts timer and scheduling noise)
+REPEATS = 5
 
 
 async def _pair() -> tuple[Device, Device, gatt.Characteristic]:
@@ -95,11 +96,16 @@ async def _record_run(notes: list[bytes], n_frames: int) -> tuple[float, int]:
         t0: list[float] = []
         orig = rec._on_data
 
+        got = 0
+
         def timed(d: bytes) -> None:
+            nonlocal got
             if not t0:
                 t0.append(time.perf_counter())
             orig(d)
-            if writer.bytes and rec.decoder.counters.bytes >= total:
+            got += len(d)
+            if got >= total:
+                rec._feed()  # the window ends when everything is written and decoded
                 t0.append(time.perf_counter())
                 rec.stop()
 

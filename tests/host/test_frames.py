@@ -51,3 +51,17 @@ def test_status_and_end_parse() -> None:
 def test_malformed_body_is_reported() -> None:
     with pytest.raises(frames.MalformedFrame):
         frames.parse_body(wire.STATUS, b"\x01\x02")
+
+
+@pytest.mark.parametrize("kind", [wire.STATUS, wire.SYNC, wire.ACK, wire.ERROR, wire.EVENTS])
+def test_struct_paths_match_declarative(kind: int) -> None:
+    """The struct paths for fixed-size kinds and EVENTS give what construct gives,
+    on random payloads of every valid length, and wrong lengths still fail."""
+    rng = np.random.default_rng(kind)
+    size = struct.calcsize(frames._FIXED[kind][0].format) if kind != wire.EVENTS else 9
+    for n in ([size] if kind != wire.EVENTS else [0, 9, 18, 9 * 26]):
+        for _ in range(50):
+            payload = rng.integers(0, 256, n, dtype=np.uint8).tobytes()
+            assert frames.parse_body(kind, payload) == frames._plain(frames.BODIES[kind].parse(payload))
+    with pytest.raises(frames.MalformedFrame):
+        frames.parse_body(kind, bytes(size + (1 if kind != wire.EVENTS else 4)))

@@ -186,7 +186,9 @@ class BLE:
             self._handler(event, data)
 
     def _supervision_timeout(self) -> None:
-        """The radio went silent too long: the connection ends on both sides."""
+        """The radio went silent too long: the connection ends on both sides. (Real
+        controllers each declare the timeout; bumble's virtual ones carry the
+        reason with the disconnection.)"""
         if self._conn is not None:
             self._loop.create_task(self._conn.disconnect(reason=HCI_CONNECTION_TIMEOUT))
 

@@ -142,10 +142,10 @@ async def _session(sc: Scenario, progress: Callable[[float], None] | None) -> Sc
     def angle(_now: float) -> float:  # the rotor turns with the run: sample k is at k ms
         return float(angles[min(cap_stream.k, angles.size - 1)])
 
-    t0 = boot
     plan = LinkPlan(seed=cfg.seed, dead_from_deg=cfg.dead_from_deg, dead_to_deg=cfg.dead_to_deg,
-                    elsewhere=cfg.elsewhere, stall_at_s=t0 + cfg.stall_at * rc.seconds,
-                    stall_s=cfg.stall_s, down_at_s=t0 + cfg.down_at * rc.seconds, down_s=cfg.down_s)
+                    elsewhere=cfg.elsewhere, stall_at_s=boot + cfg.stall_at * rc.seconds,
+                    stall_s=cfg.stall_s, down_at_s=boot + cfg.down_at * rc.seconds,
+                    down_s=cfg.down_s)
     vb: Any = None
     radio = RotatingLink(plan, angle, lambda: vb.board.run_id if vb is not None else -1)
     vb = VirtualBoard(board_dev, rig_board.firmware_config(rc, cfg.ring_frames, cfg.queue_frames),
