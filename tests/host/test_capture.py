@@ -50,6 +50,19 @@ def test_round_trip(tmp_path: Path) -> None:
     assert records[0].type == capture.EVENT and stats.damaged_bytes == stats.truncated_bytes == 0
 
 
+def test_syncing_on_every_record_keeps_every_record(tmp_path: Path) -> None:
+    """sync_every_s=0: each write flushes and hands an fsync to the helper
+    thread; whatever it is doing when close() comes, the file is whole."""
+    w = capture.CaptureWriter(tmp_path / "s.slcap", {}, sync_every_s=0.0)
+    for i in range(500):
+        w.write(capture.RX, 0, bytes([i % 251]) * 200, i, i)
+        assert (tmp_path / "s.slcap").stat().st_size == w.bytes  # flushed to the OS at once
+    w.close()
+    with (tmp_path / "s.slcap").open("rb") as f:
+        got = [r.payload[0] for r in capture.CaptureReader(f)]
+    assert got == [i % 251 for i in range(500)]
+
+
 def test_cut_anywhere_reads_up_to_last_whole_record(tmp_path: Path) -> None:
     write_capture(tmp_path / "a.slcap", sim_notes(1))
     data = (tmp_path / "a.slcap").read_bytes()
