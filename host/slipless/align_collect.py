@@ -88,9 +88,11 @@ class AlignSink(NullSink):
 
     def timing(self, run: RunState, seq: int, kind: int, tick: int, arrival: Arrival) -> None:
         t = self._times(run)
-        t.timing.append((tick, arrival.mono_ns, arrival.wall_ns, self.input))
         if kind == wire.SYNC:
             t.sync_rx[seq] = (arrival.mono_ns, self.input)
+        if seq < run.high_seq:
+            return  # came after a later frame (a resend): its wait is not the link's delay
+        t.timing.append((tick, arrival.mono_ns, arrival.wall_ns, self.input))
 
 
 @dataclass
