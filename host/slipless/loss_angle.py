@@ -13,7 +13,13 @@ The angle comes from, in this order:
 
 A frame's angle is the rotor's at the board time the frame was sent (its
 latest tick, interpolated by seq for frames that never arrived). A gyro's
-bias adds bias x time to the angle: 0.003 rad/s is 10 degrees a minute.
+bias adds bias x time to the angle (0.003 rad/s is 10 degrees a minute), and
+so does the Earth's rotation, which a gyro feels and the turntable's angle
+in the lab does not: when the rotor stands still for a while (STILL_SAMPLES
+readings under STILL_RAD_S), the mean of those readings (in a window centred
+on their median) is taken off the rate before integrating. What is left is
+the noise's random walk and the zero's own uncertainty (0.02 rad/s of noise
+and 40 s of standstill leave a few degrees over three minutes).
 """
 
 from __future__ import annotations
@@ -27,6 +33,8 @@ from slipless.loss_collect import RunFacts, rate_factor
 
 TWO_PI = 2 * math.pi
 _PREFERRED = ("gyro_z", "rotation", "rot", "gyro", "rate")
+STILL_RAD_S = 0.05  # a rate reading under this is the rotor standing still (common practice)
+STILL_SAMPLES = 20  # still readings needed before their median is taken as the zero
 
 
 def _rate_stream(f: RunFacts, name: str | None
@@ -50,6 +58,11 @@ def _rate_stream(f: RunFacts, name: str | None
 
 def _from_rate(t_us: np.ndarray, w: np.ndarray, at_us: np.ndarray, start_us: int | None
                ) -> np.ndarray:
+    still = w[np.abs(w) < STILL_RAD_S]
+    if still.size >= STILL_SAMPLES:
+        zero = float(np.median(still))
+        zero = float(np.mean(w[np.abs(w - zero) < STILL_RAD_S]))  # centred: no clipping bias
+        w = w - zero  # the gyro's zero (its bias and the Earth's rotation)
     if start_us is not None and start_us < t_us[0]:
         t_us, w = np.concatenate(([start_us], t_us)), np.concatenate((w[:1], w))
     dt = np.diff(t_us) / 1e6

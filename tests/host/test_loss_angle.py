@@ -88,3 +88,31 @@ def test_histogram_bins_and_worst() -> None:
     assert [b["frames"] for b in h["bins"]] == [9, 9, 9, 9]
     assert [b["lost"] for b in h["bins"]] == [0, 3, 0, 0]
     assert h["worst_deg"] == 135.0 and h["frames_with_angle"] == 36
+
+
+@pytest.mark.parametrize("still_first", [True, False])
+def test_the_gyros_zero_is_taken_from_standstill(still_first: bool,
+                                                 monkeypatch: pytest.MonkeyPatch) -> None:
+    """A gyro reads its bias plus the Earth's vertical rate (Omega sin(latitude),
+    Omega = 7.292115e-5 rad/s, IERS Conventions 2010, table 1.1) while the
+    turntable stands still; integrating that shifts the angle by tens of
+    degrees over minutes. The standstill readings fix the zero."""
+    from slipless import loss_angle
+    from slipless.physics import EARTH_RATE_RAD_S, earth_vertical_rate
+
+    assert EARTH_RATE_RAD_S == pytest.approx(7.292115e-5, rel=1e-6)
+    rate_hz, bias = 200, 0.003
+    t = np.arange(0, 180 * rate_hz) / rate_hz
+    spinning = (t >= 20) & (t < 160) if still_first else (t >= 0) & (t < 140)
+    true_w = np.where(spinning, TWO_PI, 0.0)
+    rng = np.random.default_rng(1)
+    read = true_w + bias + earth_vertical_rate(48.0) + rng.normal(0, 0.02, t.size)
+    t_us = (t * 1e6).astype(np.int64)
+    got = loss_angle._from_rate(t_us, read, t_us, None)
+    truth = np.concatenate(([0.0], np.cumsum((true_w[1:] + true_w[:-1]) / 2 / rate_hz)))
+    # left: the noise's random walk and the zero's uncertainty (0.02 rad/s / sqrt(8000
+    # still readings) x 180 s, about 2 degrees each)
+    assert np.max(np.abs(np.degrees(got - truth))) < 6.0
+    monkeypatch.setattr(loss_angle, "STILL_SAMPLES", 10**9)  # no zero taken: the old drift
+    drift = loss_angle._from_rate(t_us, read, t_us, None)
+    assert np.degrees(drift[-1] - truth[-1]) > 25.0

@@ -10,6 +10,7 @@ from slipless.sim.rotating_link import LinkPlan, RotatingLink
 
 
 def link(angle: float = 0.0, **plan: float) -> RotatingLink:
+    plan.setdefault("host_delay_s", 0.0)
     return RotatingLink(LinkPlan(**plan), lambda _t: angle, lambda: 1)  # type: ignore[arg-type]
 
 
@@ -20,11 +21,27 @@ def test_notifications_leave_at_connection_events_a_few_at_a_time() -> None:
     assert times == [pytest.approx(t) for t in (0.015, 0.015, 0.015, 0.030, 0.030)]
 
 
+def test_each_connection_has_its_phase_and_the_laptop_adds_its_latency() -> None:
+    r = RotatingLink(LinkPlan(seed=5, interval_s=0.015, host_delay_s=0.001), lambda _t: 0.0,
+                     lambda: 1)
+    phases = []
+    for _ in range(20):
+        r.reset()  # a new connection
+        t = r.next_event(1.0)
+        k = r._k(1.0)
+        anchor = r._at(k)
+        assert 1.0 <= anchor < 1.0 + 0.015 + 1e-12 and t >= anchor
+        phases.append(r._phase)
+        up = r.write_arrives(2.0)
+        assert up is not None and (up - r._phase) / 0.015 == pytest.approx(round((up - r._phase) / 0.015))
+    assert 0.0 <= min(phases) and max(phases) < 0.015 and len(set(phases)) == 20
+
+
 def test_a_stall_holds_everything_until_it_ends() -> None:
     r = link(stall_at_s=10.0, stall_s=1.6)
     assert r.next_event(10.2) == pytest.approx(11.61, abs=0.016)
     assert r.next_event(10.2) >= 11.6
-    assert r.write_arrives(10.5) == pytest.approx(11.6)  # writes wait too; the link survives
+    assert r.write_arrives(10.5) == pytest.approx(11.61)  # writes wait too; the link survives
 
 
 def test_an_outage_loses_writes_and_hides_the_board() -> None:

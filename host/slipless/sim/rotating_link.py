@@ -4,7 +4,9 @@ Scenario of our own (invented, for the demo and tests). It sits inside the
 board's simulated BLE stack (sim.ble_board.BLE) and decides when and whether
 each notification and each laptop write gets across:
 - connection events: notifications leave at the connection interval, a few
-  per event; a laptop write reaches the board at the next event;
+  per event, and reach the laptop's application after its stack's latency;
+  a laptop write reaches the board at the next event after that latency;
+  each connection has its own event phase;
 - the dead sector: while the board's antenna faces it (once per turn), what
   the board sends does not reach the laptop's application (on a real link the
   shadowed stretch ends in the laptop's stack dropping it); elsewhere a rare
@@ -35,6 +37,7 @@ class LinkPlan:
     seed: int = 1
     interval_s: float = 0.015  # connection interval
     per_event: int = 4  # notifications per connection event
+    host_delay_s: float = 0.001  # mean latency of the laptop's stack, each way (exponential)
     dead_from_deg: float = 200.0
     dead_to_deg: float = 236.0
     elsewhere: float = 0.002  # share of notifications lost at other angles
@@ -67,8 +70,10 @@ class RotatingLink:
         self.run = run  # the board's present run id: the truth follows that run
         self.truth = Truth()
         self._rng = random.Random(plan.seed)
-        self._event_at = -1.0  # time of the connection event being filled
+        self._phase = 0.0  # connection events come at phase + k x interval_s
+        self._event_k = -(1 << 62)  # the connection event being filled
         self._in_event = 0
+        self._deliver_at = 0.0
         self._up = wire.Deframer()
         self._down = wire.Deframer()
         self._up.feed(b"\x00")  # both start at a frame boundary
@@ -88,28 +93,42 @@ class RotatingLink:
                 return start + length
         return t
 
+    def _k(self, t: float) -> int:
+        """The first connection event at or after t (events: phase + k x interval)."""
+        return math.ceil((t - self._phase) / self.plan.interval_s - 1e-9)
+
+    def _at(self, k: int) -> float:
+        return self._phase + k * self.plan.interval_s
+
     def next_event(self, now: float) -> float:
-        """The first connection event at or after now with room for one more
-        notification (events come every interval_s from time 0)."""
+        """When a notification offered now reaches the laptop: at the first
+        connection event with room for it (per_event), plus the laptop stack's
+        latency (one draw per event: the event's packets come up together)."""
         p = self.plan
-        t = max(math.ceil(now / p.interval_s - 1e-9) * p.interval_s, self._event_at)
-        if t == self._event_at and self._in_event >= p.per_event:
-            t += p.interval_s
-        while (quiet := self._silent(t)) != t:
-            t = math.ceil(quiet / p.interval_s - 1e-6) * p.interval_s
-        if t != self._event_at:
-            self._event_at, self._in_event = t, 0
+        k = max(self._k(now), self._event_k)
+        if k == self._event_k and self._in_event >= p.per_event:
+            k += 1
+        while (quiet := self._silent(self._at(k))) != self._at(k):
+            k = self._k(quiet)
+        if k != self._event_k:
+            self._event_k, self._in_event = k, 0
+            self._deliver_at = self._at(k) + (self._rng.expovariate(1.0 / p.host_delay_s)
+                                              if p.host_delay_s else 0.0)
         self._in_event += 1
-        return t
+        return self._deliver_at
 
     def write_arrives(self, now: float) -> float | None:
         """When a laptop write sent now reaches the board (None: never, the
-        connection is dying)."""
+        connection is dying): after the laptop stack's latency, at the next
+        connection event the link can carry."""
         p = self.plan
-        t = math.ceil(now / p.interval_s - 1e-9) * p.interval_s
+        up = self._rng.expovariate(1.0 / p.host_delay_s) if p.host_delay_s else 0.0
+        t = self._at(self._k(now + up))
         if p.down_at_s and p.down_at_s <= t < p.down_at_s + p.down_s:
             return None
-        return self._silent(t)
+        while (quiet := self._silent(t)) != t:
+            t = self._at(self._k(quiet))
+        return t
 
     def audible_at(self, now: float) -> float:
         """When advertising started now can first be heard."""
@@ -166,6 +185,9 @@ class RotatingLink:
         return out
 
     def reset(self) -> None:
-        """A new connection: the board starts at a frame boundary again."""
+        """A new connection: its events have their own phase; the board starts
+        at a frame boundary again."""
+        self._phase = self._rng.uniform(0.0, self.plan.interval_s)
+        self._event_k, self._in_event = -(1 << 62), 0
         self._down = wire.Deframer()
         self._down.feed(b"\x00")
