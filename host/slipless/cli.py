@@ -46,7 +46,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     m = sub.add_parser("demo", help="simulate a run over a damaging link, decode it, write tables")
     m.add_argument("--out", type=Path, default=Path("demo-out"), metavar="DIR")
-    m.add_argument("--seconds", type=float, default=180.0, help="simulated run length (default 180)")
+    m.add_argument("--seconds", type=float, default=180.0, help="simulated run length, 60 to 3600 (default 180)")
     m.add_argument("--seed", type=int, default=1)
 
     f = sub.add_parser("flash", help="check a config, compile and copy the firmware to a board, verify")

@@ -32,6 +32,7 @@ from rich.console import Console
 from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 
 from slipless.cli import decode_files
+from slipless.errors import InputError
 from slipless.sim.scenario import Scenario, ScenarioConfig, build
 
 STAGES = ("running the board's firmware, the radio and the recorder", "decoding capture + mirror",
@@ -39,11 +40,20 @@ STAGES = ("running the board's firmware, the radio and the recorder", "decoding 
           "writing the report")
 
 
+MIN_SECONDS, MAX_SECONDS = 60.0, 3600.0  # six blocks of at least 10 s; an hour of signals in RAM
+
+
 def run_demo(args: argparse.Namespace, console: Console) -> int:
     t0 = time.perf_counter()
     out: Path = args.out
-    out.mkdir(parents=True, exist_ok=True)
-    with Progress(TextColumn("[{task.completed}/{task.total}] {task.description}"), BarColumn(),
+    if not MIN_SECONDS <= args.seconds <= MAX_SECONDS:  # (NaN fails this too)
+        raise InputError(f"--seconds: between {MIN_SECONDS:.0f} and {MAX_SECONDS:.0f}, "
+                         f"not {args.seconds}")
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise InputError(f"--out {out}: cannot make the folder ({exc.strerror})") from exc
+    with Progress(TextColumn("[{task.completed:.0f}/{task.total:.0f}] {task.description}"), BarColumn(),
                   TimeElapsedColumn(), console=console, transient=True) as bar:
         task = bar.add_task(STAGES[0], total=len(STAGES))
 
@@ -54,7 +64,8 @@ def run_demo(args: argparse.Namespace, console: Console) -> int:
 
         print_safety(console)
         sc = build(out, ScenarioConfig(seed=args.seed, seconds=args.seconds),
-                   lambda done: bar.update(task, completed=done))
+                   lambda done: bar.update(task, completed=done,
+                                           description=f"{STAGES[0]} ({done:.0%} of the run)"))
         prediction = out / "prediction.json"
         prediction.write_text(json.dumps({"inputs": asdict(sc.rig.rig_inputs()),
                                           "results": sc.rig.prediction()}, indent=1, default=float))

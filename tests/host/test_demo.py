@@ -8,6 +8,7 @@ import json
 import re
 from pathlib import Path
 
+import pytest
 from rich.console import Console
 
 from slipless.cli import build_parser
@@ -77,3 +78,22 @@ def test_demo_is_deterministic_and_its_account_is_the_radios_truth(tmp_path: Pat
             account.terms["dropped_board"]) == (truth["received"], truth["resent"], truth["lost"],
                                                 truth["dropped"])
     assert sc.board_dropped == len(sc.queue_dropped) > 0 and sc.truth.notes_dead > 0
+
+
+@pytest.mark.parametrize("argv, expect", [
+    (["--seconds", "5"], "--seconds: between 60 and 3600"),
+    (["--seconds", "nan"], "--seconds: between 60 and 3600"),
+    (["--seconds", "1e9"], "--seconds: between 60 and 3600"),
+    (["--out", "FILE"], "cannot make the folder"),
+])
+def test_bad_demo_arguments_are_one_line(tmp_path: Path, capsys: pytest.CaptureFixture[str],
+                                         argv: list[str], expect: str) -> None:
+    from slipless.cli import main
+
+    (tmp_path / "f").write_text("not a folder")
+    argv = [str(tmp_path / "f") if a == "FILE" else a for a in argv]
+    if "--out" not in argv:
+        argv += ["--out", str(tmp_path / "out")]
+    assert main(["demo", *argv]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and expect in err
