@@ -44,9 +44,11 @@ def build_parser() -> argparse.ArgumentParser:
     d.add_argument("--format", choices=FORMATS, default="csv", help="table format (default csv)")
     d.add_argument("--quiet", action="store_true", help="no progress bar or summary")
 
-    m = sub.add_parser("demo", help="simulate a run over a damaging link, decode it, write tables")
+    m = sub.add_parser("demo", help="a simulated run (the board's firmware, a lossy radio, the "
+                       "recorder) analysed end to end, with a report")
     m.add_argument("--out", type=Path, default=Path("demo-out"), metavar="DIR")
-    m.add_argument("--seconds", type=float, default=180.0, help="simulated run length, 60 to 3600 (default 180)")
+    m.add_argument("--seconds", type=float, default=180.0,
+                   help="simulated run length, 60 to 3600 (default 180)")
     m.add_argument("--seed", type=int, default=1)
 
     f = sub.add_parser("flash", help="check a config, compile and copy the firmware to a board, verify")

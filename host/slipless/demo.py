@@ -62,7 +62,7 @@ def run_demo(args: argparse.Namespace, console: Console) -> int:
                 console.print(line, highlight=False)
             bar.update(task, completed=k, description=STAGES[k] if k < len(STAGES) else "done")
 
-        print_safety(console)
+        _print_safety(console)
         sc = build(out, ScenarioConfig(seed=args.seed, seconds=args.seconds),
                    lambda done: bar.update(task, completed=done,
                                            description=f"{STAGES[0]} ({done:.0%} of the run)"))
@@ -89,7 +89,7 @@ def run_demo(args: argparse.Namespace, console: Console) -> int:
     return 0
 
 
-def print_safety(console: Console) -> None:
+def _print_safety(console: Console) -> None:
     console.print("simulated only: nothing spins and no coil is driven. On a real rig, guard the "
                   "rotor, size the flyback path, watch coil heating and the board's battery, and "
                   "follow your local codes (README, Safety).", highlight=False)
@@ -107,7 +107,8 @@ def _scenario_lines(sc: Scenario) -> list[str]:
         f"{sc.down_board_s[0]:.1f}-{sc.down_board_s[1]:.1f} s",
         f"radio: {t.notes_dead} notifications lost at the dead angle "
         f"({c.dead_from_deg:.0f}-{c.dead_to_deg:.0f} deg), {t.notes_random} elsewhere; "
-        f"{sc.progress.reconnects} reconnection; recorder: {sc.pings} pings, "
+        f"{sc.progress.reconnects} reconnection{'s' if sc.progress.reconnects != 1 else ''}; "
+        f"recorder: {sc.pings} pings, "
         f"{len(t.asked)} frames asked for again",
         f"capture: {sc.capture}  mirror: {sc.mirror}",
     ]
