@@ -94,7 +94,7 @@ def test_histogram_bins_and_worst() -> None:
 def test_the_gyros_zero_is_taken_from_standstill(still_first: bool,
                                                  monkeypatch: pytest.MonkeyPatch) -> None:
     """A gyro reads its bias plus the Earth's vertical rate (Omega sin(latitude),
-    Omega = 7.292115e-5 rad/s, IERS Conventions 2010, table 1.1) while the
+    Omega = 7.2921150e-5 rad/s, the WGS 84 defining constant, NIMA TR8350.2) while the
     turntable stands still; integrating that shifts the angle by tens of
     degrees over minutes. The standstill readings fix the zero."""
     from slipless import loss_angle

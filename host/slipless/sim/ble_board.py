@@ -34,7 +34,7 @@ _IRQ_CENTRAL_DISCONNECT = 2
 _IRQ_GATTS_WRITE = 3
 _IRQ_MTU_EXCHANGED = 21
 QUEUE = 8  # notifications the "controller" holds before refusing more
-HCI_CONNECTION_TIMEOUT = 0x08  # Bluetooth Core Specification, Vol 1, Part F: error codes
+HCI_CONNECTION_TIMEOUT = 0x08  # "Connection Timeout", Core Specification error codes (from memory)
 
 FIRMWARE = Path(__file__).resolve().parents[3] / "firmware"
 PROTOCOL = Path(__file__).resolve().parents[3] / "protocol"

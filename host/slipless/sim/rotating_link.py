@@ -45,7 +45,9 @@ class LinkPlan:
     stall_s: float = 1.6
     down_at_s: float = 0.0  # laptop loop time the link goes silent; 0: never
     down_s: float = 3.0  # until the board can be heard again
-    supervision_s: float = 0.5  # silence before the connection is declared lost
+    # silence before the connection is declared lost: the Core Specification allows
+    # 100 ms to 32 s, more than 2 x (1 + latency) x interval (here 30 ms)
+    supervision_s: float = 0.5
 
 
 @dataclass
