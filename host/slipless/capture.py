@@ -82,7 +82,7 @@ class CaptureWriter:
                  clock: Any = None) -> None:
         self.path = path
         self.clock = clock if clock is not None else SystemClock()
-        self._f: BinaryIO = path.open("wb")
+        self._f: BinaryIO = path.open("wb", buffering=1 << 16)  # few write calls per second
         raw = json.dumps(meta, sort_keys=True).encode()
         self._f.write(_FILE_HEAD.pack(MAGIC, VERSION, len(raw), zlib.crc32(raw)) + raw)
         self.sync_every_s = sync_every_s

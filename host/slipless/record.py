@@ -20,7 +20,7 @@ from slipless.decoder import Arrival, Decoder, NullSink, RunState
 from slipless.protocol import wire
 from slipless.transports import Central, LinkError
 
-FEED_BYTES = 4096  # the live decoder takes notifications in batches of about this size
+FEED_BYTES = 16384  # the live decoder takes notifications in batches of about this size
 
 # state -> the states it may move to
 STATES: dict[str, tuple[str, ...]] = {
