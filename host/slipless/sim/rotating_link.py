@@ -8,9 +8,10 @@ each notification and each laptop write gets across:
   a laptop write reaches the board at the next event after that latency;
   each connection has its own event phase;
 - the dead sector: while the board's antenna faces it (once per turn), what
-  the board sends does not reach the laptop's application (on a real link the
-  shadowed stretch ends in the laptop's stack dropping it); elsewhere a rare
-  loss at random;
+  the board sends does not reach the laptop's application; elsewhere a rare
+  loss at random. (A simplification: a real link layer retries, so a shadow
+  shows partly as stalls and queue overflow, partly as drops in the laptop's
+  stack.)
 - one stall (interference): no connection event gets through for `stall_s`,
   the link survives, and the board's send queue overflows;
 - one outage: the link goes silent, the supervision timeout ends the
