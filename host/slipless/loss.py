@@ -100,6 +100,7 @@ class RunAccount:
     angle: dict[str, Any] | None = None  # loss_angle.histogram + its source
     angle_rad: np.ndarray | None = None  # rotor angle per seq
     burst: dict[str, Any] = field(default_factory=dict)  # loss_metrics.summary of live_lost
+    idle: bool = False  # no run was started: status (and replies) only, nothing missing
 
     @property
     def live_lost(self) -> np.ndarray:
@@ -229,6 +230,10 @@ def account_run(f: RunFacts, dec: Decoder, resends: list[Resend], downs: list[Li
     acc = RunAccount(st.board, st.run, expected, end_seen, cls, times, terms, corrupt,
                      f.duplicates, f.mirror_copies, out_of_order, streams, [], checks, disc, notes)
     acc.gaps = find_gaps(acc, f, alloc, damaged, downs)
+    # Only status and command replies, nothing missing, no END: the board idling
+    # outside a started run (e.g. its STATUS frames between boot and START).
+    acc.idle = (not end_seen and not streams and bool(f.kinds) and terms["lost"] == 0
+                and terms["dropped_board"] == 0 and set(f.kinds.values()) <= set(_REPLIES))
     return acc
 
 

@@ -85,7 +85,7 @@ def _stream(s: Any) -> dict[str, Any]:
 
 def run_dict(a: RunAccount) -> dict[str, Any]:
     return {"board": a.board, "run": a.run, "end_seen": a.end_seen, "closes": a.closes,
-            **_frames(a), **_samples(a),
+            "idle": a.idle, **_frames(a), **_samples(a),
             "loss_fraction": (a.terms["lost"] + a.terms["dropped_board"]) / a.expected
             if a.expected else 0.0,
             "streams": [_stream(s) for s in a.streams], "gaps": [_gap(a, g) for g in a.gaps],
@@ -192,6 +192,11 @@ def _angle_table(angle: dict[str, Any]) -> Table:
 
 def print_report(accounts: Sequence[RunAccount], doc: dict[str, Any], console: Console) -> None:
     for a in accounts:
+        if a.idle and a.closes:
+            console.print(f"board {a.board} run {a.run}: {a.expected} frame"
+                          f"{'s' if a.expected != 1 else ''} sent while no run was started "
+                          "(status while idling; --json has its account)")
+            continue
         console.print(_accounting_table(a))
         extra = (f"side tallies: {a.corrupt} damaged on the link, {a.duplicates} duplicate copies, "
                  f"{a.out_of_order} out of order")

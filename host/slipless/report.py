@@ -69,17 +69,11 @@ def _loss(d: ReportData) -> None:
     facts = loss_collect(d.inputs, d.mirrors, None)  # bad input raises here, before anything
     accounts = analyse(facts)
     d.loss_doc = document(accounts, facts, None)
-    d.idle = {(r["board"], r["run"]) for r in d.loss_doc["runs"] if _idle(r)}
+    d.idle = {(r["board"], r["run"]) for r in d.loss_doc["runs"] if r["idle"]}
     with tempfile.TemporaryDirectory() as tmp:
         path = Path(tmp) / "loss.png"
         plot([a for a in accounts if (a.board, a.run) not in d.idle] or accounts, path)
         d.loss_png = path.read_bytes()
-
-
-def _idle(r: dict[str, Any]) -> bool:
-    """A board idling outside any started run (say, its STATUS frames after boot):
-    no streams, no samples, no END. Listed, but not worth a section of its own."""
-    return not r["streams"] and not r["samples_expected"] and not r["end_seen"]
 
 
 def _clock(d: ReportData) -> None:

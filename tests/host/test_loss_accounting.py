@@ -12,6 +12,7 @@ import tempfile
 import zlib
 from pathlib import Path
 
+import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
@@ -150,3 +151,25 @@ def test_an_end_frame_claiming_far_too_many_frames_is_not_trusted(tmp_path: Path
     (acc,) = analyse(collect([tmp_path / "odd.bin"]))
     assert acc.expected == 12 and not acc.end_seen and not acc.closes
     assert "not trusted" in acc.discrepancies[0]
+
+
+def test_a_board_idling_before_its_run_is_told_apart(tmp_path: Path,
+                                                    capsys: pytest.CaptureFixture[str]) -> None:
+    """STATUS frames sent before any START (run 1) are an idle run: accounted,
+    flagged, printed in one line; a run whose descriptor was lost is not."""
+    idle = wire.Encoder(1, 1)
+    data = b"".join(idle.frame(idle.status(t, 3900, 2500, 1000, 1, 0, 0, 0)) for t in (0, 5_000_000))
+    cut = wire.Encoder(1, 3)  # samples only: its descriptor never came
+    off = cut.begin_samples(0, 10_000_000)
+    cut.body[off : off + 4] = b"\x01\x00\x02\x00"
+    data += cut.frame(cut.finish(off + 4))
+    (tmp_path / "mixed.bin").write_bytes(data)
+    accounts = {a.run: a for a in analyse(collect([tmp_path / "mixed.bin"]))}
+    assert accounts[1].idle and accounts[1].closes and accounts[1].expected == 2
+    assert not accounts[3].idle
+    from slipless.cli import main
+
+    main(["loss", str(tmp_path / "mixed.bin")])
+    out = capsys.readouterr().out
+    assert "board 1 run 1: 2 frames sent while no run was started" in out
+    assert "board 1 run 3" in out and "run 3: " not in out  # the cut run keeps its table
