@@ -22,17 +22,17 @@ def test_demo_numbers(tmp_path: Path) -> None:
     assert run_demo(args, console) == 0
     text = console.export_text()
     # the board's firmware ran the run: its frames, its queue's drops, the radio's doings
-    assert ("board firmware: run 2, 1,331 frames built; its send queue dropped 67 (counted in "
+    assert ("board firmware: run 2, 1,327 frames built; its send queue dropped 65 (counted in "
             "STATUS) while the link stalled 17.9-19.5 s and was down 37.1-40.1 s") in text
-    assert ("radio: 96 notifications lost at the dead angle (200-236 deg), 3 elsewhere; "
-            "1 reconnection; recorder: 58 pings, 174 frames asked for again") in text
+    assert ("radio: 80 notifications lost at the dead angle (200-236 deg), 1 elsewhere; "
+            "1 reconnection; recorder: 58 pings, 159 frames asked for again") in text
     assert "coil: the board switched 25 times; its program matches the rig's plan within" in text
-    assert ("loss (radio only): 1,331 expected = 1,157 received + 147 resent + 0 from the mirror + "
+    assert ("loss (radio only): 1,327 expected = 1,168 received + 132 resent + 0 from the mirror + "
             "9 lost + 18 dropped on the board: closes") in text
-    assert ("against the simulation: received 1,157, resent 147, lost 9, dropped 18: every term "
+    assert ("against the simulation: received 1,168, resent 132, lost 9, dropped 18: every term "
             "matches") in text
     assert "gap causes found: board_overflow, disconnection, unknown" in text
-    assert ("loss (with the mirror): 1,331 expected = 1,157 received + 147 resent + 27 from the "
+    assert ("loss (with the mirror): 1,327 expected = 1,168 received + 132 resent + 27 from the "
             "mirror + 0 lost + 0 dropped on the board: closes") in text
     m = re.search(r"worst angle \(integrated gyro\) (\d+) deg \(dead sector 200-236\)", text)
     assert m and 200 <= int(m.group(1)) <= 236  # the loss lands in the dead sector

@@ -76,7 +76,8 @@ class BLE:
         self._handler: Callable[[int, Any], None] | None = None
         self._chars: dict[int, gatt.Characteristic] = {}
         self._written: dict[int, bytearray] = {}
-        self._queue: deque[tuple[bytes, list[int]]] = deque()  # notification, its run's seqs
+        # notification, its run's seqs, when the stack took it
+        self._queue: deque[tuple[bytes, list[int], float]] = deque()
         self._conn: Connection | None = None
         self._wake = asyncio.Event()
         self.notified = 0
@@ -143,7 +144,8 @@ class BLE:
             self.refused += 1
             raise OSError(errno.ENOMEM)
         value = bytes(data)
-        self._queue.append((value, self.radio.handed(value) if self.radio is not None else []))
+        self._queue.append((value, self.radio.handed(value) if self.radio is not None else [],
+                            self._loop.time()))
         self._wake.set()
 
     # -- the stack side --
@@ -202,7 +204,10 @@ class BLE:
                     data_char = next(c for c in self._chars.values() if c.properties & 0x10)
                 if self.radio is not None:
                     conn = self._conn
-                    await asyncio.sleep(self.radio.next_event(self._loop.time()) - self._loop.time())
+                    # the first event after the stack took it: one it may have missed
+                    # while the one before it was being delivered still counts
+                    at = self.radio.next_event(self._queue[0][2])
+                    await asyncio.sleep(max(0.0, at - self._loop.time()))
                     if conn is not self._conn or not self._queue:
                         continue  # the connection ended while waiting for its event
                     if self.radio.lost(self._queue[0][1], self._loop.time()):
