@@ -203,10 +203,14 @@ def _clock_section(d: ReportData) -> str:
     return out
 
 
+def _no_pulses(d: ReportData) -> str:
+    return f"<p class=\"note\">{esc(d.notes.get('pulses', 'no pulses'))}</p>"
+
+
 def _traces(d: ReportData) -> str:
     a = d.pulses
     if a is None:
-        return f"<p class=\"note\">{esc(d.notes.get('pulses', 'no pulses'))}</p>"
+        return _no_pulses(d)
     picks = _pick_pulses(a)
     if not picks:
         return "<p class=\"note\">no pulse with both signal and current to show</p>"
@@ -250,7 +254,7 @@ def _pick_pulses(a: Any) -> list[Any]:
 def _conditions(d: ReportData) -> str:
     a = d.pulses
     if a is None:
-        return f"<p class=\"note\">{esc(d.notes.get('pulses', 'no pulses'))}</p>"
+        return _no_pulses(d)
     from slipless.pulses_plots import against_model, conditions
     from slipless.pulses_report import tables
 

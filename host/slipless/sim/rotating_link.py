@@ -60,6 +60,7 @@ class Truth:
     lost_random: set[int] = field(default_factory=set)  # a copy was lost elsewhere
     notes_dead: int = 0  # notifications lost at the dead angle
     notes_random: int = 0
+    pings: int = 0  # PING commands the laptop wrote
     asked: dict[int, float] = field(default_factory=dict)  # seq -> first RESEND naming it (sent)
     outage: tuple[float, float] = (0.0, 0.0)  # loop seconds: silent from, heard again at
     disconnected_at: float = 0.0
@@ -103,6 +104,12 @@ class RotatingLink:
     def _at(self, k: int) -> float:
         return self._phase + k * self.plan.interval_s
 
+    def _open(self, k: int) -> int:
+        """Event k, or the first after it that falls outside the stall and the outage."""
+        while (quiet := self._silent(self._at(k))) != self._at(k):
+            k = self._k(quiet)
+        return k
+
     def next_event(self, now: float) -> float:
         """When a notification offered now reaches the laptop: at the first
         connection event with room for it (per_event), plus the laptop stack's
@@ -111,8 +118,7 @@ class RotatingLink:
         k = max(self._k(now), self._event_k)
         if k == self._event_k and self._in_event >= p.per_event:
             k += 1
-        while (quiet := self._silent(self._at(k))) != self._at(k):
-            k = self._k(quiet)
+        k = self._open(k)
         if k != self._event_k:
             self._event_k, self._in_event = k, 0
             self._deliver_at = self._at(k) + (self._rng.expovariate(1.0 / p.host_delay_s)
@@ -126,12 +132,10 @@ class RotatingLink:
         connection event the link can carry."""
         p = self.plan
         up = self._rng.expovariate(1.0 / p.host_delay_s) if p.host_delay_s else 0.0
-        t = self._at(self._k(now + up))
-        if p.down_at_s and p.down_at_s <= t < p.down_at_s + p.down_s:
+        k = self._k(now + up)
+        if p.down_at_s and p.down_at_s <= self._at(k) < p.down_at_s + p.down_s:
             return None
-        while (quiet := self._silent(t)) != t:
-            t = self._at(self._k(quiet))
-        return t
+        return self._at(self._open(k))
 
     def audible_at(self, now: float) -> float:
         """When advertising started now can first be heard."""
@@ -168,11 +172,13 @@ class RotatingLink:
         return False
 
     def wrote(self, data: bytes, now: float) -> None:
-        """The laptop wrote: note the resends it asks for (when it asked)."""
+        """The laptop wrote: note its pings and the resends it asks for (when it asked)."""
         for body in self._up.feed(data):
             if len(body) < wire.HEADER_SIZE + wire.COMMAND_FIXED_SIZE:
                 continue
-            if body[wire.HEADER_SIZE] & 0x7F == wire.CMD_RESEND:
+            opcode = body[wire.HEADER_SIZE] & 0x7F
+            self.truth.pings += opcode == wire.CMD_PING
+            if opcode == wire.CMD_RESEND:
                 first, last = struct.unpack_from(wire.RESEND_ARGS, body,
                                                  wire.HEADER_SIZE + wire.COMMAND_FIXED_SIZE)
                 for s in range(first, last + 1):

@@ -180,7 +180,7 @@ async def _session(sc: Scenario, progress: Callable[[float], None] | None) -> Sc
     sc.frames = vb.board.framer.seq
     sc.board_dropped = vb.board.ring.dropped
     sc.truth = radio.truth
-    sc.pings = sum(1 for _ in _pings(sc.capture))
+    sc.pings = radio.truth.pings
     return sc
 
 
@@ -196,15 +196,3 @@ def _watch_queue(ring: Any, dropped: set[int]) -> None:
             dropped.update(range(before, ring.send))
 
     ring.commit = watched
-
-
-def _pings(path: Path) -> Any:
-    from slipless.capture import TX, CaptureReader
-    from slipless.protocol import wire
-
-    with path.open("rb") as f:
-        for r in CaptureReader(f):
-            if r.type == TX:
-                body = wire.cobs_decode(r.payload[:-1])
-                if body[wire.HEADER_SIZE] & 0x7F == wire.CMD_PING:
-                    yield r
