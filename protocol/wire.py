@@ -72,7 +72,13 @@ EV_MARKER = const(2)  # value: user marker number
 EV_STEP = const(3)  # value: index of the pulse-program step just entered
 EV_SAFETY = const(4)  # value: reason the board forced the coil off
 EV_LINK = const(5)  # value: 1 link up, 0 link down
-EVENT_NAMES = {1: "coil", 2: "marker", 3: "step", 4: "safety", 5: "link"}
+# The central changed the connection's parameters (the stack's connection-update
+# event): one event each, at the same tick, so a run's record shows the link it had.
+EV_CONN_INTERVAL = const(6)  # value: connection interval in microseconds
+EV_CONN_LATENCY = const(7)  # value: peripheral latency in connection events
+EV_CONN_TIMEOUT = const(8)  # value: supervision timeout in milliseconds
+EVENT_NAMES = {1: "coil", 2: "marker", 3: "step", 4: "safety", 5: "link", 6: "conn_interval",
+               7: "conn_latency", 8: "conn_timeout"}
 
 # END reasons.
 END_REASON_NAMES = {1: "stop_command", 2: "program_done", 3: "error", 4: "low_battery", 5: "link_lost"}

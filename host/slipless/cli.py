@@ -73,6 +73,12 @@ def build_parser() -> argparse.ArgumentParser:
     from slipless.report_cli import add_parser as add_report_parser
 
     add_report_parser(sub)
+    from slipless.budget_cli import add_parser as add_budget_parser
+
+    add_budget_parser(sub)
+    from slipless.control_cli import add_parser as add_control_parser
+
+    add_control_parser(sub)
     return p
 
 
@@ -87,6 +93,8 @@ COMMANDS = {
     "pulses": ("slipless.pulses", "run_pulses"),
     "loss": ("slipless.loss_cli", "run_loss"),
     "report": ("slipless.report_cli", "run_report"),
+    "budget": ("slipless.budget_cli", "run_budget"),
+    "board": ("slipless.control_cli", "run_board"),
 }
 
 

@@ -24,11 +24,11 @@ from rich.console import Console
 from rich.progress import BarColumn, DownloadColumn, Progress
 from rich.table import Table
 
+from slipless.boardfiles import firmware_dir, wire_path
 from slipless.errors import InputError, SliplessError
 
 DEFAULT_PROFILE = "esp32-devkitc"
 ROOT_SOURCES = ("boot.py", "main.py")  # the board runs these from / as source
-CHECKOUT = Path(__file__).resolve().parents[2]  # host/slipless/flash.py -> repo root
 TIMEOUT_S = 20.0  # one mpremote call that moves little data (connect, probe, verify)
 MIN_BYTES_PER_S = 500  # raw-REPL copy speed floor for timeouts (common practice: 1-3 kB/s)
 
@@ -65,15 +65,6 @@ class Item:
 
 
 # ---- laptop-side checks ------------------------------------------------------
-
-
-def firmware_dir(root: Path = CHECKOUT) -> Path:
-    fw = root / "firmware"
-    if not ((fw / "profiles").is_dir() and (fw / "config.py").is_file()
-            and (root / "protocol" / "wire.py").is_file()):
-        raise InputError(f"slipless flash needs a source checkout: no firmware/ and protocol/ beside "
-                         f"the package at {root}")
-    return fw
 
 
 def load_board_config_module(fw: Path):
@@ -176,7 +167,7 @@ TEST_ONLY = ("simhw.py",)  # the simulated hardware layer: tests and the demo, n
 def board_modules(fw: Path) -> list[Path]:
     mods = [p for p in sorted(fw.glob("*.py"))
             if p.name not in ROOT_SOURCES and p.name not in TEST_ONLY]
-    wire = fw.parent / "protocol" / "wire.py"
+    wire = wire_path()
     if any(p.name == "wire.py" for p in mods):
         raise InputError(f"{fw / 'wire.py'} clashes with the shared protocol/wire.py")
     return mods + [wire]
@@ -184,7 +175,7 @@ def board_modules(fw: Path) -> list[Path]:
 
 def build_plan(fw: Path, config: dict, profile: dict, out_dir: Path) -> list[Item]:
     plan = [Item("/lib/" + src.stem + ".mpy", compile_module(src, profile["arch"], out_dir),
-                 str(src.relative_to(fw.parent))) for src in board_modules(fw)]
+                 f"{src.parent.name}/{src.name}") for src in board_modules(fw)]
     plan.append(Item("/config.json", json.dumps(config, separators=(",", ":")).encode(),
                      "config (validated)"))
     plan.append(Item("/profile.json", json.dumps(profile, separators=(",", ":")).encode(),

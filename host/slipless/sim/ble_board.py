@@ -17,7 +17,6 @@ import errno
 import sys
 from collections import deque
 from collections.abc import Callable
-from pathlib import Path
 from typing import Any
 
 from bumble import gatt
@@ -29,6 +28,8 @@ from bumble.host import Host
 from bumble.link import LocalLink
 from bumble.transport.common import AsyncPipeSink
 
+from slipless.boardfiles import firmware_dir, protocol_dir
+
 _IRQ_CENTRAL_CONNECT = 1
 _IRQ_CENTRAL_DISCONNECT = 2
 _IRQ_GATTS_WRITE = 3
@@ -36,8 +37,8 @@ _IRQ_MTU_EXCHANGED = 21
 QUEUE = 8  # notifications the "controller" holds before refusing more
 HCI_CONNECTION_TIMEOUT = 0x08  # "Connection Timeout", Core Specification error codes (from memory)
 
-FIRMWARE = Path(__file__).resolve().parents[3] / "firmware"
-PROTOCOL = Path(__file__).resolve().parents[3] / "protocol"
+FIRMWARE = firmware_dir()
+PROTOCOL = protocol_dir()
 
 
 def virtual_pair() -> tuple[Device, Device]:
