@@ -79,10 +79,12 @@ class CaptureWriter:
     that takes notifications. close() flushes and fsyncs before it returns."""
 
     def __init__(self, path: Path, meta: dict[str, Any], sync_every_s: float = 1.0,
-                 clock: Any = None) -> None:
+                 clock: Any = None, exclusive: bool = False) -> None:
+        """exclusive: refuse (FileExistsError) rather than replace an existing file."""
         self.path = path
         self.clock = clock if clock is not None else SystemClock()
-        self._f: BinaryIO = path.open("wb", buffering=1 << 16)  # few write calls per second
+        # few write calls per second
+        self._f: BinaryIO = path.open("xb" if exclusive else "wb", buffering=1 << 16)
         raw = json.dumps(meta, sort_keys=True).encode()
         self._f.write(_FILE_HEAD.pack(MAGIC, VERSION, len(raw), zlib.crc32(raw)) + raw)
         self.sync_every_s = sync_every_s

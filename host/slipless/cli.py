@@ -52,7 +52,8 @@ def build_parser() -> argparse.ArgumentParser:
     m.add_argument("--seed", type=int, default=1)
 
     f = sub.add_parser("flash", help="check a config, compile and copy the firmware to a board, verify")
-    f.add_argument("--port", required=True, help="the board's serial port, e.g. /dev/ttyUSB0 or COM3")
+    f.add_argument("--port", help="the board's serial port, e.g. /dev/ttyUSB0 or COM3 (not needed "
+                   "with --dry-run)")
     f.add_argument("--board", metavar="PROFILE",
                    help="board profile (default: the config's profile, else esp32-devkitc)")
     f.add_argument("--config", type=Path, metavar="FILE", help="config JSON (default: built-in defaults)")

@@ -392,35 +392,72 @@ def show_cautions_once(console: Console) -> None:
         pass  # cannot remember: show them again next time, which is harmless
 
 
-def ensure_key(config: dict, write: bool) -> Path:
-    """Give the board a key (config link.key_hex) and keep the laptop's copy.
+def ensure_key(config: dict) -> None:
+    """Give the board a key (config link.key_hex) unless the config has one.
 
     A config without a key gets a new random one at every flash (so commands
-    recorded before survive neither a reflash nor an erased counter file); the
-    copy goes to a file only the user can read. Returns the key file's path."""
+    recorded before survive neither a reflash nor an erased counter file). The
+    laptop's copy is written only once the board holds it (`keep_key`)."""
     from slipless import keys
 
     link = config["link"]
-    path = keys.key_path(config["board_id"])
     if not link["key_hex"]:
         link["key_hex"] = keys.new_key_hex()
-    if write:
-        keys.save_key(config["board_id"], link["key_hex"])
-    return path
+
+
+def keep_key(config: dict) -> tuple[Path, Path | None]:
+    """After a verified flash: save the key the board now holds. A different key
+    held before is kept beside it (-> its new name), never overwritten."""
+    from slipless import keys
+
+    path = keys.key_path(config["board_id"])
+    kept = None
+    try:
+        old = path.read_text(encoding="ascii").strip() if path.is_file() else ""
+    except (OSError, UnicodeDecodeError):
+        old = "?"  # unreadable: keep the file as it is, under another name
+    if old and old != config["link"]["key_hex"]:
+        kept = keys.retire_key(path)
+    keys.save_key(config["board_id"], config["link"]["key_hex"])
+    return path, kept
+
+
+GATT_CACHE_NOTE = (
+    "note: if this firmware changed the board's GATT layout (a new slipless version), a laptop "
+    "that connected before may hold stale GATT handles (BlueZ caches them): if `slipless record` "
+    "then cannot find the data characteristic, remove the board from the laptop's Bluetooth "
+    "devices (Linux: bluetoothctl remove ADDRESS) and scan again.")
+
+
+def show_budget(config: dict, profile: dict, console: Console) -> None:
+    """The data rate against a slow and a fast link (slipless budget has the options)."""
+    try:
+        from slipless import budget
+    except ImportError:  # pragma: no cover - budget ships with the package
+        return
+    lines_for = getattr(budget, "summary_lines", None)
+    if lines_for is not None:
+        for line in lines_for(config, profile):
+            console.print(line)
 
 
 def run_flash(args: argparse.Namespace, console: Console) -> int:
     fw = firmware_dir()
     config, profile = resolve_config(fw, args.config, args.board)
-    key_file = ensure_key(config, write=not args.dry_run)  # saved before the board gets it
+    ensure_key(config)  # the laptop keeps it only once the board verified it (keep_key)
     if not args.dry_run:
+        if not args.port:
+            raise InputError("flash needs --port (the board's serial port), or --dry-run to only "
+                             "see the plan")
         check_port(args.port)
     with tempfile.TemporaryDirectory(prefix="slipless-flash-") as tmp:
         work = Path(tmp)
         plan = build_plan(fw, config, profile, work)
         if args.dry_run:
-            show_plan(plan, console, f"flash plan for {profile['name']} on {args.port} (dry run: "
+            where = f" on {args.port}" if args.port else ""
+            show_plan(plan, console, f"flash plan for {profile['name']}{where} (dry run: "
                       "nothing copied)")
+            show_budget(config, profile, console)
             return 0
         board = Board(args.port)
         remove = probe(board, plan, profile, fw, work, console)
@@ -437,9 +474,14 @@ def run_flash(args: argparse.Namespace, console: Console) -> int:
                 bar.advance(task, len(it.data))
                 console.print(f"copied {it.dest} ({len(it.data):,} B)")
         verify(board, plan)
+    key_file, kept = keep_key(config)
     show_plan(plan, console, f"flashed {profile['name']} on {args.port}: {len(plan)} files, "
               f"{total:,} bytes, all sha256 verified")
     console.print(f"board key: {key_file} (readable only by you; `slipless record` uses it)")
+    if kept is not None:
+        console.print(f"the key this laptop held before for board {config['board_id']} is kept "
+                      f"as {kept}")
+    console.print(GATT_CACHE_NOTE)
     if any(it.dest == "/main.py" for it in plan):
         console.print("Reset or power-cycle the board to start the new firmware.")
     else:

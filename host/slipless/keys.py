@@ -53,6 +53,21 @@ def save_key(board_id: int, key_hex: str, folder: Path | None = None) -> Path:
     return path
 
 
+def retire_key(path: Path) -> Path:
+    """Move a key file aside (board-<id>.key -> board-<id>.old-<UTC time>.key.old)
+    so a new key never destroys the one a board may still hold."""
+    import time
+
+    stamp = time.strftime("%Y%m%dT%H%M%SZ", time.gmtime())
+    dest = path.with_name(f"{path.stem}.old-{stamp}.key.old")
+    n = 1
+    while dest.exists():
+        dest = path.with_name(f"{path.stem}.old-{stamp}-{n}.key.old")
+        n += 1
+    os.replace(path, dest)
+    return dest
+
+
 def load_key(path: Path) -> bytes:
     """-> key bytes, or InputError: missing, readable by others, or not hex."""
     try:

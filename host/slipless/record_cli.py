@@ -31,7 +31,7 @@ RUN_CAUTION = (
 def add_parsers(sub: Any) -> None:
     r = sub.add_parser("record", help="record a run from a board over BLE into a capture file")
     r.add_argument("--out", type=Path, required=True, metavar="FILE.slcap",
-                   help="capture file to write")
+                   help="capture file to write (an existing file is never overwritten)")
     r.add_argument("--board", dest="target", metavar="NAME|ADDRESS",
                    help="board to connect to (default: the first advertising the slipless service)")
     r.add_argument("--backend", choices=BACKENDS, default="bleak",
@@ -57,7 +57,8 @@ def add_parsers(sub: Any) -> None:
     p.add_argument("--board", dest="target", metavar="NAME|ADDRESS", help="board to connect to")
     p.add_argument("--backend", choices=BACKENDS, default="bleak")
     p.add_argument("--transport", default="usb:0", help="bumble transport spec")
-    p.add_argument("--out", type=Path, required=True, metavar="FILE", help="where to write it")
+    p.add_argument("--out", type=Path, required=True, metavar="FILE",
+                   help="where to write it (an existing file is never overwritten)")
     _add_key_options(p)
 
 
@@ -154,11 +155,38 @@ def status_line(p: Progress, started: float) -> Text:
                 f"battery {bat}")
 
 
+def check_new_file(path: Path, what: str) -> None:
+    """Recordings are never overwritten: refuse an existing --out, naming a free one."""
+    if path.is_dir():
+        raise InputError(f"{path}: is a directory, expected a {what} file name")
+    if path.exists() or path.is_symlink():
+        free = next(c for n in range(2, 10000)
+                    if not (c := path.with_name(f"{path.stem}-{n}{path.suffix}")).exists())
+        raise InputError(f"{path} exists: slipless never overwrites a {what}; choose another "
+                         f"--out (e.g. {free})")
+    if not path.parent.is_dir():
+        raise InputError(f"{path}: folder {path.parent} does not exist")
+
+
+def host_info() -> dict[str, Any]:
+    """What recorded the run: the capture header keeps it beside the data."""
+    from importlib.metadata import PackageNotFoundError, version
+
+    found = {}
+    for pkg in ("bleak", "bumble", "dbus-fast"):
+        try:
+            found[pkg] = version(pkg)
+        except PackageNotFoundError:
+            pass
+    return {"os": platform.system(), "os_release": platform.release(),
+            "machine": platform.machine(), "python": platform.python_version(),
+            "packages": found}
+
+
 def run_record(args: argparse.Namespace, console: Console) -> int:
     if len(args.label.encode()) > 32:
         raise InputError("--label: at most 32 bytes")
-    if args.out.exists() and args.out.is_dir():
-        raise InputError(f"{args.out}: is a directory, expected a capture file name")
+    check_new_file(args.out, "capture")
     signer = signer_for(args, console)  # before any file is written: no key, no capture
     if not args.no_start:
         console.print(RUN_CAUTION, style="bold")
@@ -176,9 +204,12 @@ async def _record(args: argparse.Namespace, console: Console, signer: Any = None
     meta = {"slipless": __version__, "created_wall_ns": time.time_ns(),
             "created_mono_ns": time.monotonic_ns(), "host": platform.node(),
             "backend": args.backend, "sources": [{"target": args.target or ""}],
-            "sync_every_s": args.sync_every}
+            "sync_every_s": args.sync_every, "label": args.label, "recorder": host_info()}
     try:
-        writer = CaptureWriter(args.out, meta, args.sync_every)
+        writer = CaptureWriter(args.out, meta, args.sync_every, exclusive=True)
+    except FileExistsError:
+        raise InputError(f"{args.out} exists: slipless never overwrites a capture; choose "
+                         "another --out") from None
     except OSError as exc:
         raise InputError(f"{args.out}: cannot write ({exc.strerror})") from exc
     opts = RecordOptions(duration_s=args.duration, label=args.label,
@@ -212,6 +243,7 @@ async def _record(args: argparse.Namespace, console: Console, signer: Any = None
 
 
 def run_pull(args: argparse.Namespace, console: Console) -> int:
+    check_new_file(args.out, "mirror file")
     if args.link:
         return asyncio.run(_pull_link(args, console, signer_for(args, console)))
     from slipless.flash import Board, FlashError, check_port

@@ -67,6 +67,30 @@ def test_dry_run_prints_plan_and_touches_nothing(tmp_path, capsys, monkeypatch, 
     assert not list(FIRMWARE.glob("*.mpy")) and not list((REPO / "protocol").glob("*.mpy"))
 
 
+def test_dry_run_needs_no_port(tmp_path, capsys):
+    rc = main(["flash", "--config", str(config_for(tmp_path, "esp32-devkitc")), "--dry-run"])
+    assert rc == 0
+    assert "flash plan for esp32-devkitc (dry run: nothing copied)" in capsys.readouterr().out
+
+
+def test_flash_without_port_is_one_line(tmp_path, capsys):
+    assert main(["flash", "--config", str(config_for(tmp_path, "pico-w"))]) == 2
+    assert "--port" in one_line_error(capsys)
+
+
+def test_failed_flash_keeps_the_key_the_board_holds(tmp_path, capsys, slipless_home):
+    """No board answered: the laptop's key for that board must be the one it had."""
+    from slipless import keys
+
+    held = keys.save_key(1, "ab" * 32, slipless_home / "keys")
+    rc = main(["flash", "--port", str(tmp_path / "no-such-port"), "--config",
+               str(config_for(tmp_path, "pico-w"))])
+    assert rc == 2
+    one_line_error(capsys)
+    assert held.read_text() == "ab" * 32 + "\n"
+    assert sorted(p.name for p in held.parent.iterdir()) == ["board-1.key"]
+
+
 def test_plan_contents(tmp_path):
     config, profile = flash.resolve_config(FIRMWARE, config_for(tmp_path, "pico-w"), None)
     plan = flash.build_plan(FIRMWARE, config, profile, tmp_path)
@@ -210,6 +234,9 @@ def flashed(tmp_path_factory):
     board = PtyBoard(tmp)
     try:
         cfg = config_for(tmp, "pico-w")
+        from slipless import keys
+
+        keys.save_key(1, "cd" * 32, tmp / "home" / "keys")  # a key from an earlier flash
         env = dict(os.environ, SLIPLESS_HOME=str(tmp / "home"))
         proc = subprocess.run([sys.executable, "-m", "slipless", "flash", "--port", board.path,
                                "--board", "pico-w", "--config", str(cfg)],
@@ -233,6 +260,10 @@ def test_flash_end_to_end(flashed):
     assert key_file.parent.stat().st_mode & 0o777 == 0o700
     config["link"]["key_hex"] = key_file.read_text().strip()  # flash gave the board a new key
     assert len(config["link"]["key_hex"]) == 64
+    old = list(key_file.parent.glob("board-1.old-*.key.old"))  # the earlier key is kept aside
+    assert len(old) == 1 and old[0].read_text() == "cd" * 32 + "\n", proc.stdout
+    assert old[0].stat().st_mode & 0o777 == 0o600
+    assert "is kept as" in proc.stdout and "bluetoothctl remove" in proc.stdout
     plan = flash.build_plan(FIRMWARE, config, profile, tmp)  # same bytes: compiling is deterministic
     code = f"import os\nfor p in {[it.dest for it in plan]!r}:\n    print(p, os.stat(p)[6])"
     sizes = dict(line.split() for line in board.exec(code).splitlines())

@@ -1,0 +1,71 @@
+"""What a user installs: the wheel, built from this checkout, installed with its
+dependencies into a fresh virtual environment, and every command run from
+there, away from the checkout (so nothing can come from the source tree)."""
+
+from __future__ import annotations
+
+import json
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+REPO = Path(__file__).resolve().parents[2]
+COMMANDS = ("decode", "demo", "flash", "record", "pull", "predict", "pulses", "loss", "align",
+            "report", "budget", "board")
+
+
+def run(cmd: list[str], cwd: Path, timeout: float = 600) -> subprocess.CompletedProcess[str]:
+    env = {k: v for k, v in os.environ.items() if k not in ("PYTHONPATH", "VIRTUAL_ENV")}
+    env["SLIPLESS_HOME"] = str(cwd / "home")  # keys and markers stay in the test's folder
+    proc = subprocess.run(cmd, cwd=cwd, capture_output=True, text=True, timeout=timeout, env=env,
+                          stdin=subprocess.DEVNULL)
+    assert proc.returncode == 0, f"{cmd}: exit {proc.returncode}\n{proc.stdout[-3000:]}\n{proc.stderr[-3000:]}"
+    return proc
+
+
+@pytest.fixture(scope="module")
+def installed(tmp_path_factory) -> Path:
+    tmp = tmp_path_factory.mktemp("wheel")
+    run([sys.executable, "-m", "pip", "wheel", "--no-deps", "--no-build-isolation", "--quiet",
+         "-w", str(tmp / "dist"), str(REPO)], tmp)
+    (wheel,) = (tmp / "dist").glob("slipless-*.whl")
+    run([getattr(sys, "_base_executable", sys.executable), "-m", "venv", str(tmp / "venv")], tmp)
+    run([str(tmp / "venv" / "bin" / "python"), "-m", "pip", "install", "--quiet",
+         "--disable-pip-version-check", str(wheel)], tmp)
+    return tmp
+
+
+def test_installed_package_is_the_wheel(installed: Path) -> None:
+    py = installed / "venv" / "bin" / "python"
+    out = run([str(py), "-c", "import slipless, slipless.boardfiles as b, json; print(json.dumps("
+               "[slipless.__file__, str(b.firmware_dir()), str(b.wire_path())]))"], installed)
+    paths = json.loads(out.stdout)
+    assert all(p.startswith(str(installed / "venv")) for p in paths), paths
+    assert not any(str(REPO) in p for p in paths)
+
+
+def test_every_command_answers_help(installed: Path) -> None:
+    exe = str(installed / "venv" / "bin" / "slipless")
+    assert "usage: slipless" in run([exe, "--help"], installed).stdout
+    for command in COMMANDS:
+        assert f"usage: slipless {command}" in run([exe, command, "--help"], installed).stdout
+
+
+def test_flash_dry_run_from_the_wheel(installed: Path) -> None:
+    exe = str(installed / "venv" / "bin" / "slipless")
+    cfg = installed / "rig.json"
+    cfg.write_text((REPO / "firmware" / "config.example.json").read_text())
+    out = run([exe, "flash", "--config", str(cfg), "--dry-run"], installed).stdout
+    assert "dry run: nothing copied" in out
+    for dest in ("/lib/wire.mpy", "/lib/board.mpy", "/config.json", "/main.py"):
+        assert dest in out
+
+
+def test_demo_from_the_wheel(installed: Path) -> None:
+    exe = str(installed / "venv" / "bin" / "slipless")
+    out = run([exe, "demo", "--seconds", "60", "--out", str(installed / "demo")], installed).stdout
+    assert "loss (radio only):" in out and ": closes" in out
+    assert (installed / "demo" / "report.html").is_file()
