@@ -22,7 +22,8 @@ def run(cmd: list[str], cwd: Path, timeout: float = 600) -> subprocess.Completed
     env["SLIPLESS_HOME"] = str(cwd / "home")  # keys and markers stay in the test's folder
     proc = subprocess.run(cmd, cwd=cwd, capture_output=True, text=True, timeout=timeout, env=env,
                           stdin=subprocess.DEVNULL)
-    assert proc.returncode == 0, f"{cmd}: exit {proc.returncode}\n{proc.stdout[-3000:]}\n{proc.stderr[-3000:]}"
+    assert proc.returncode == 0, (f"{cmd}: exit {proc.returncode}\n{proc.stdout[-3000:]}\n"
+                                  f"{proc.stderr[-3000:]}")
     return proc
 
 
