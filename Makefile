@@ -10,7 +10,7 @@ BOARD_PORTS := esp32 rp2
 NODE_STAMP := node_modules/.installed
 DEMO_OUT ?= demo-out
 
-.PHONY: setup test lint demo bench clean browser fuzz
+.PHONY: setup test lint demo bench clean browser dbus fuzz
 
 setup: $(STAMP) $(NODE_STAMP)
 
@@ -24,13 +24,19 @@ $(NODE_STAMP): package.json package-lock.json
 	npm ci --no-audit --no-fund --loglevel=error
 	touch $(NODE_STAMP)
 
-test: setup lint browser
+test: setup lint browser dbus
 	$(PY) -m pytest -q
 
 # Headless Chromium for the report's browser test: installed only where missing and
 # apt-get can; never fails the build (the test skips, saying so, without it).
 browser:
 	command -v chromium >/dev/null || (apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq chromium) || true
+
+# dbus-daemon for the tests that run bleak's BlueZ back end against a double of
+# bluetoothd's D-Bus API on a private bus: installed only where missing and apt-get
+# can; never fails the build (those tests skip, saying so, without it).
+dbus:
+	test -x /usr/bin/dbus-daemon || (apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq dbus) || true
 
 lint: setup $(STUBS_STAMP)
 	$(VENV)/bin/ruff check host protocol firmware tests

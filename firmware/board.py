@@ -68,6 +68,7 @@ class Board:
         self.link = None
         self.mirror = None  # mirror.Mirror when the config enables it (main.py)
         self.config_error = None
+        self.config_saved = False  # set_config wrote a new /config.json: it runs from the next boot
         # Key set: state-changing commands must be authenticated (commands.py). The
         # counter file lives on flash; hw.auth_path None (simulations) keeps it in RAM.
         key = link_cfg["key_hex"]
@@ -143,6 +144,7 @@ class Board:
             return wire.ERR_BAD_ARGUMENT
         self.cfg = new
         self.hw.save_config(json.dumps(new))
+        self.config_saved = True
         return 0
 
     def pull(self, request):
@@ -250,6 +252,16 @@ class Board:
         c = self.clock
         c.update()
         self.framer.event(code, value, c.hi, c.lo)
+
+    def conn_params(self, interval_us, latency, timeout_ms):
+        """Link callback (main loop, not the IRQ): the connection's new
+        parameters, as three events at one tick."""
+        c = self.clock
+        c.update()
+        f = self.framer
+        f.event(wire.EV_CONN_INTERVAL, interval_us, c.hi, c.lo)
+        f.event(wire.EV_CONN_LATENCY, latency, c.hi, c.lo)
+        f.event(wire.EV_CONN_TIMEOUT, timeout_ms, c.hi, c.lo)
 
 
 def board_time_us(hi, lo):

@@ -1,23 +1,31 @@
 """Laptop commands: parse, validate, act, and answer every one.
 
-Each COMMAND frame gets exactly one ACK or ERROR (a PING gets a SYNC; a RESEND
-gets its frames plus an ACK, or an ERROR naming what the ring no longer holds).
+Each COMMAND frame gets exactly one ACK or ERROR (a PING gets a SYNC, an INFO
+one INFO frame; a RESEND gets its frames plus an ACK, or an ERROR naming what
+the ring no longer holds).
 A bad command changes nothing. Commands are rare, so this module may allocate.
 
 A board with a key (config link.key_hex) runs the state-changing opcodes
 (wire.GUARDED: start, stop, set_config, pull) only when authenticated
-(opcode | AUTH_FLAG, trailer checked by auth.py); ping, status and resend may
-come either way. Anything refused gets ERROR auth and changes nothing.
+(opcode | AUTH_FLAG, trailer checked by auth.py); ping, status, resend and
+info may come either way (sealed, they are a key check: SPEC 3.9.1).
+Anything refused gets ERROR auth and changes nothing.
 """
 
+import hashlib
 import struct
 
 import auth
+from compat import ON_BOARD
 
 import wire
 
 # struct errors are ValueError on MicroPython, struct.error on CPython.
 _BAD_ARGS = (ValueError, IndexError) + ((struct.error,) if hasattr(struct, "error") else ())
+# The file main.py boots from; hw.config_path overrides it (simulations on CPython
+# have none unless a test gives one: the laptop's own /config.json is not the board's).
+_CONFIG_PATH = "/config.json" if ON_BOARD else None
+_READ_CHUNK = 256  # bytes of the config file hashed per read (RAM per INFO stays small)
 
 
 def handle(board, body):
@@ -86,6 +94,9 @@ def handle(board, body):
             _no_more(args, 0)
             board.status()
             fr.ack_now(request, opcode)
+        elif opcode == wire.CMD_INFO:
+            _no_more(args, 0)
+            info(board, request)
         elif opcode == wire.CMD_PULL:
             _no_more(args, 0)
             code = board.pull(request)
@@ -95,6 +106,61 @@ def handle(board, body):
             fr.error_now(request, opcode, wire.ERR_BAD_COMMAND)
     except _BAD_ARGS:
         fr.error_now(request, opcode, wire.ERR_BAD_ARGUMENT)
+
+
+def info(board, request):
+    """One INFO frame: what a laptop needs to know the board outside a run."""
+    from board import FW  # the firmware version (board.py imports this module)
+
+    fr = board.framer
+    c = board.clock
+    c.update()
+    sha = config_sha(getattr(board.hw, "config_path", _CONFIG_PATH))
+    flags = 0
+    if board.auth is not None:
+        flags |= wire.INFO_KEYED
+    if board.running:
+        flags |= wire.INFO_RUNNING
+    if board.coil.state:
+        flags |= wire.INFO_COIL_ON
+    if board.config_error:
+        flags |= wire.INFO_CONFIG_FALLBACK
+    if board.config_saved:
+        flags |= wire.INFO_CONFIG_SAVED
+    if sha is None:
+        flags |= wire.INFO_NO_CONFIG_FILE
+        sha = bytes(wire.CONFIG_SHA_SIZE)
+    m = board.mirror
+    held = 0
+    if m is not None:
+        flags |= wire.INFO_MIRROR
+        held = m.size + m.n
+    floor = board.auth.last if board.auth is not None else 0
+    cfg = board.cfg
+    n = fr.info_body(request, c.now(), FW, flags, floor, min(held, 0xFFFFFFFF), sha, cfg["name"],
+                     cfg["profile"])
+    fr.emit(n, fr.body)
+
+
+def config_sha(path):
+    """First CONFIG_SHA_SIZE bytes of SHA-256 over the file's bytes as stored
+    (the laptop hashes the text `slipless flash` wrote); None without a file."""
+    if path is None:
+        return None
+    try:
+        f = open(path, "rb")
+    except OSError:
+        return None
+    h = hashlib.sha256()
+    try:
+        while True:
+            chunk = f.read(_READ_CHUNK)
+            if not chunk:
+                break
+            h.update(chunk)
+    finally:
+        f.close()
+    return h.digest()[: wire.CONFIG_SHA_SIZE]
 
 
 def _answer(fr, request, opcode, code):

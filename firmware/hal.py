@@ -4,6 +4,14 @@ The H-bridge pins are driven low the moment this object is made, before the
 config is even read: the coil is off at every boot, watchdog resets included.
 Every read used in the sampling loop returns a small int and allocates
 nothing (buffers are made here, once). Only this module imports `machine`.
+
+Voltages: channels of kind "adc" and the battery read in millivolts. Where the
+port's ADC has read_uv() (ESP32: "a calibrated input voltage (before
+attenuation) in microvolts" from the chip's eFuse values, with millivolt
+resolution; MicroPython docs, esp32 quick reference) that is used; elsewhere
+read_u16() is scaled by the profile's vref_mv (3300 unless it says), which
+assumes an ideal converter. A profile may list pins and ADC channels the
+radio uses (radio_pins, radio_adc); this module refuses to read them.
 """
 
 import gc
@@ -20,8 +28,21 @@ _MPU6050_PWR_MGMT_1 = 0x6B
 _MPU6050_GYRO_ZOUT_H = 0x47
 
 
+VREF_MV = 3300  # ADC full scale where the port gives no calibration (profile: vref_mv)
+
+
 def _pin_out(spec):
     return machine.Pin(spec, machine.Pin.OUT, value=0)
+
+
+def check_not_radio(profile, spec, what):
+    """Refuse a pin or ADC channel the profile says the radio uses."""
+    if spec.get("pin") in profile.get("radio_pins", ()):
+        raise ValueError("%s: GP%s is used by the wireless chip on %s"
+                         % (what, spec["pin"], profile.get("name", "this board")))
+    if spec.get("adc") in profile.get("radio_adc", ()):
+        raise ValueError("%s: ADC%s is shared with the wireless chip on %s"
+                         % (what, spec["adc"], profile.get("name", "this board")))
 
 
 def _int16(buf):
@@ -30,20 +51,26 @@ def _int16(buf):
 
 
 class Adc:
-    """Internal ADC, averaged over `average` reads; 12-bit counts (0..4095)."""
+    """Internal ADC in millivolts, averaged over `average` reads."""
 
-    def __init__(self, spec):
+    def __init__(self, spec, vref_mv=VREF_MV):
         self.adc = machine.ADC(machine.Pin(spec["pin"]))
         atten = spec.get("atten")
         if atten and hasattr(machine.ADC, "ATTN_11DB"):
             self.adc.atten({"0dB": machine.ADC.ATTN_0DB, "2.5dB": machine.ADC.ATTN_2_5DB,
                             "6dB": machine.ADC.ATTN_6DB, "11dB": machine.ADC.ATTN_11DB}[atten])
         self.n = spec.get("average", 1)
+        self.vref_mv = vref_mv
+        self.calibrated = hasattr(self.adc, "read_uv")
 
     def read(self):
-        total = 0
-        for _ in range(self.n):
-            total += self.adc.read_u16() >> 4
+        total = 0  # per-read millivolts, so the sum stays a small int
+        if self.calibrated:
+            for _ in range(self.n):
+                total += self.adc.read_uv() // 1000  # type: ignore[attr-defined,unused-ignore]  # ESP32 only
+        else:
+            for _ in range(self.n):
+                total += (self.adc.read_u16() * self.vref_mv + 32767) // 65535
         return total // self.n
 
 
@@ -122,8 +149,13 @@ class BoardHW:
         self.clock = Clock64()
         self.on_frame = None
         self._wdt = None
-        bat = profile.get("battery", {})
+        self.vref_mv = profile.get("vref_mv", VREF_MV)
+        bat = profile.get("battery") or {}
+        if bat.get("kind") == "none":  # the profile says why (e.g. the pin is the radio's)
+            bat = {}
+        check_not_radio(profile, bat, "battery")
         self._bat = machine.ADC(bat["adc"] if "adc" in bat else machine.Pin(bat["pin"])) if bat else None
+        self._bat_uv = self._bat is not None and hasattr(self._bat, "read_uv")
         self._bat_div10 = int(bat.get("divider", 1.0) * 10)
         self._temp = profile.get("temperature", {}).get("kind")
         self._temp_adc = machine.ADC(4) if self._temp == "rp2_sensor" else None
@@ -131,8 +163,9 @@ class BoardHW:
     def channel(self, name):
         spec = self.profile["channels"][name]
         kind = spec["kind"]
+        check_not_radio(self.profile, spec, "channel " + name)
         if kind == "adc":
-            return Adc(spec).read
+            return Adc(spec, self.vref_mv).read
         if kind == "ads1115":
             return Ads1115(spec).read
         if kind == "mpu6050_gyro_z":
@@ -147,9 +180,12 @@ class BoardHW:
         return time.ticks_ms()
 
     def battery_mv(self):
+        """Battery voltage in mV; 0 means unknown (no battery channel)."""
         if self._bat is None:
             return 0
-        return self._bat.read_u16() * 33 * self._bat_div10 // 65535 * 10
+        if self._bat_uv:
+            return self._bat.read_uv() * self._bat_div10 // 10000  # type: ignore[attr-defined,unused-ignore]
+        return self._bat.read_u16() * self.vref_mv // 65535 * self._bat_div10 // 10
 
     def temp_cdeg(self):
         if self._temp_adc is not None:  # RP2040/RP2350 datasheet sensor formula, integer form

@@ -8,11 +8,27 @@ several notifications. When the stack refuses a notification (its queue is
 full) the same buffer is offered again on the next poll: nothing is lost and
 sampling never waits. Frames the link cannot keep up with leave the ring's
 send queue and are counted (ring.dropped); the laptop can ask for them again.
+
+Stacks differ (the board profile's "ble" object says which kind the port has):
+- NimBLE (ESP32): gatts_notify raises OSError when its queue is full; the link
+  retries the same buffer (above).
+- BTstack (Pico W, Pico 2 W): gatts_notify never refuses. When the controller's
+  buffers are full it copies the value onto the heap and sends it later, with
+  no limit, so a link slower than the data grows the heap until the board
+  dies. For such a stack ("notify_queue": "unbounded") the link paces itself:
+  at most notify_per_interval notifications per connection interval (learnt
+  from the connection-update event; DEFAULT_INTERVAL_US until then), and none
+  while the free heap is under min_free_heap. Frames it holds back stay in the
+  ring's send queue, so the ring's drop count stays the exact account.
+
+Connection-parameter updates are copied by the IRQ and handed to
+on_conn_params(interval_us, latency, timeout_ms) from poll(), in the main loop.
 """
 
+import gc
 import struct
 
-from compat import const
+from compat import const, ticks_add, ticks_diff, ticks_us
 
 import wire
 
@@ -20,6 +36,7 @@ _IRQ_CENTRAL_CONNECT = const(1)
 _IRQ_CENTRAL_DISCONNECT = const(2)
 _IRQ_GATTS_WRITE = const(3)
 _IRQ_MTU_EXCHANGED = const(21)
+_IRQ_CONNECTION_UPDATE = const(27)
 
 _FLAG_READ = const(0x0002)
 _FLAG_WRITE_NO_RESPONSE = const(0x0004)
@@ -31,6 +48,16 @@ MAX_PAYLOAD = const(244)  # ATT MTU 247 - 3
 DEFAULT_PAYLOAD = const(20)  # ATT MTU 23 - 3
 NOTIFY_PER_POLL = const(4)  # bounds the time one poll spends in the stack
 COMMAND_BUFFER = const(512)
+# Pacing for stacks that queue without limit. Until the central updates the
+# connection the board cannot know its interval; the MicroPython docs give a
+# central's default as "typically between 30000 and 50000 microseconds"
+# (bluetooth.rst, gap_connect), so the pace assumes the slow end.
+DEFAULT_INTERVAL_US = const(50000)
+MIN_INTERVAL_US = const(7500)  # shortest interval BLE allows (6 x 1.25 ms)
+DEFAULT_NOTIFY_PER_INTERVAL = const(4)  # common practice: controllers carry several per event
+INTERVAL_UNIT_US = const(1250)  # connection interval unit (Core spec, from memory)
+TIMEOUT_UNIT_MS = const(10)  # supervision timeout unit (Core spec, from memory)
+COLLECT_EVERY_US = const(1000000)  # heap low: at most one gc.collect() a second
 
 
 def adv_payload(name, service_uuid_bytes):
@@ -50,10 +77,32 @@ def uuid_le(text):
 
 
 class Link:
-    def __init__(self, ble, bluetooth, name, ring, on_command_bytes):
+    def __init__(self, ble, bluetooth, name, ring, on_command_bytes, stack=None,
+                 on_conn_params=None, ticks_us=ticks_us, free_heap=None):
+        """stack: the board profile's "ble" object (None: a stack that refuses
+        when full); on_conn_params(interval_us, latency, timeout_ms): called from
+        poll() after each connection-parameter update; ticks_us: the board's
+        microsecond ticks (pacing); free_heap: free heap in bytes (gc.mem_free)."""
         self.ble = ble
         self.ring = ring
         self.on_command_bytes = on_command_bytes
+        self.on_conn_params = on_conn_params
+        stack = stack or {}
+        self.paced = stack.get("notify_queue") == "unbounded"
+        self.per_interval = stack.get("notify_per_interval", DEFAULT_NOTIFY_PER_INTERVAL)
+        self.min_free_heap = stack.get("min_free_heap", 0)
+        self._ticks_us = ticks_us
+        self._free_heap = free_heap if free_heap is not None else getattr(gc, "mem_free", None)
+        self.interval_us = DEFAULT_INTERVAL_US
+        self.credit = 0  # notifications still allowed in this interval (paced stacks)
+        self._credit_at = ticks_us()
+        self.held = 0  # polls that had frames to send but no credit (paced stacks)
+        self.heap_low = 0  # intervals skipped because the free heap was under min_free_heap
+        self._collected_at = ticks_add(self._credit_at, -COLLECT_EVERY_US)
+        self._params_new = False  # set by the IRQ: a connection update to report
+        self._ci = 0  # its interval (1.25 ms units), latency (events), timeout (10 ms units)
+        self._lat = 0
+        self._sto = 0
         self.connected = False
         self.conn = -1
         self.payload = DEFAULT_PAYLOAD
@@ -65,6 +114,8 @@ class Link:
         mv = memoryview(self.tx)
         self._views = [mv[:n] for n in range(MAX_PAYLOAD + 1)]
         self.frame_at = 0  # bytes of the current frame already in tx (small MTU split)
+        self._tx_frames = 0  # whole frames packed in tx, not yet notified
+        self._tx_live = 0  # of those, frames taken from the live send queue (not resends)
         self.refused = 0  # notifications the stack refused (retried)
         self.notified = 0
         self.bulk = None  # an open file streamed when the ring is idle (PULL of the mirror)
@@ -92,6 +143,7 @@ class Link:
             self.conn = data[0]
             self.connected = True
             self.payload = DEFAULT_PAYLOAD
+            self.interval_us = DEFAULT_INTERVAL_US  # a new connection: not known yet
         elif event == _IRQ_CENTRAL_DISCONNECT:
             self.connected = False
             self.conn = -1
@@ -101,25 +153,91 @@ class Link:
                 self._write_pending = True
         elif event == _IRQ_MTU_EXCHANGED:
             self.payload = min(MAX_PAYLOAD, data[1] - 3)
+        elif event == _IRQ_CONNECTION_UPDATE:
+            # (conn_handle, conn_interval, conn_latency, supervision_timeout, status);
+            # a non-zero status is a refused update: the old parameters stand.
+            if data[4] == 0 and data[0] == self.conn:
+                self._ci = data[1]
+                self._lat = data[2]
+                self._sto = data[3]
+                self._params_new = True
 
     def poll(self):
         if self._readvertise:
             self._readvertise = False
-            self.tx_n = 0
-            self.frame_at = 0
+            self._unsent()
             self.advertise()
         if self._write_pending:
             self._write_pending = False
             data = self.ble.gatts_read(self.h_cmd)
             if data:
                 self.on_command_bytes(data)
+        if self._params_new:
+            self._params_new = False  # cleared first: an update arriving now is not lost
+            self._conn_params()
         if not self.connected:
             return
+        if self.paced:
+            self._refill()
         for _ in range(NOTIFY_PER_POLL):
+            if self.paced and self.credit <= 0:
+                if self.tx_n or self.ring.pending():
+                    self.held += 1
+                return
             if not self._fill():
                 return
             if not self._notify():
                 return
+            if self.paced:
+                self.credit -= 1
+
+    def _unsent(self):
+        """The link went down: whole live frames packed but not notified go
+        back to the ring's send queue (sent after the reconnection, or pushed
+        out and counted there). A frame cut short restarts whole."""
+        r = self.ring
+        back = self._tx_live
+        if back and r.send - back >= r.oldest():
+            r.send -= back
+        self.tx_n = 0
+        self.frame_at = 0
+        self._tx_frames = 0
+        self._tx_live = 0
+
+    def _conn_params(self):
+        interval_us = self._ci * INTERVAL_UNIT_US
+        if interval_us >= MIN_INTERVAL_US:
+            self.interval_us = interval_us
+        if self.on_conn_params is not None:
+            self.on_conn_params(interval_us, self._lat, self._sto * TIMEOUT_UNIT_MS)
+
+    def _refill(self):
+        """A new connection interval: a new credit of notifications."""
+        now = self._ticks_us()
+        elapsed = ticks_diff(now, self._credit_at)
+        if elapsed < self.interval_us:
+            return
+        if elapsed >= 2 * self.interval_us:
+            self._credit_at = now  # idle for a while: no credit saved up
+        else:
+            self._credit_at = ticks_add(self._credit_at, self.interval_us)
+        credit = self.per_interval
+        if self.min_free_heap and self._heap_low(now):
+            credit = 0  # the stack's queue is eating the heap: let it drain first
+            self.heap_low += 1
+        self.credit = credit
+
+    def _heap_low(self, now):
+        f = self._free_heap
+        if f is None or f() >= self.min_free_heap:
+            return False
+        # Garbage counts as used until collected, and this loop allocates too
+        # little to trigger the collector: collect (a few ms), at most once a second.
+        if ticks_diff(now, self._collected_at) < COLLECT_EVERY_US:
+            return True
+        self._collected_at = now
+        gc.collect()
+        return f() < self.min_free_heap
 
     def _fill(self):
         """Pack frames into tx; return True if there is something to send."""
@@ -139,7 +257,7 @@ class Link:
                 for k in range(n):
                     self.tx[self.tx_n + k] = slot[k]
                 self.tx_n += n
-                r.take()
+                self._take(r)
                 continue
             # a frame longer than one notification: send it in pieces
             if self.tx_n:
@@ -151,8 +269,16 @@ class Link:
             self.frame_at += k
             if self.frame_at == n:
                 self.frame_at = 0
-                r.take()
+                self._take(r)
             return True
+
+    def _take(self, r):
+        """Consume the frame peek() gave, counting it as packed into tx."""
+        send = r.send
+        r.take()
+        self._tx_frames += 1
+        if r.send != send:
+            self._tx_live += 1
 
     def _fill_bulk(self, cap):
         """Next piece of the pulled file, cut after its last whole frame so live
@@ -189,4 +315,6 @@ class Link:
             return False
         self.notified += 1
         self.tx_n = 0
+        self._tx_frames = 0
+        self._tx_live = 0
         return True

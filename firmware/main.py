@@ -29,7 +29,8 @@ def main():
     board = Board(cfg, hw, hw.next_run_id())
     board.config_error = err
     board.mirror = mirror
-    board.link = Link(bluetooth.BLE(), bluetooth, cfg["name"], board.ring, board.command_bytes)
+    board.link = Link(bluetooth.BLE(), bluetooth, cfg["name"], board.ring, board.command_bytes,
+                      stack=profile.get("ble"), on_conn_params=board.conn_params)
     hw.start_watchdog(8000)  # a hung loop resets the board, and the reset turns the coil off
     while True:
         try:

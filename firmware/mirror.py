@@ -5,6 +5,8 @@ flushed every flush_every_ms, so after a power cut the file holds everything
 up to the last flush (the laptop decodes it like any capture: frames are
 self-delimiting and a cut tail is simply skipped). Writing stops at max_bytes
 (counted in `skipped`): flash wears and fills, and the ring still has the frames.
+A write the filesystem refuses (full, worn, card pulled) ends mirroring the same
+way, with its errno kept in `failed`: the run goes on; the mirror only stops.
 """
 
 from compat import ticks_add, ticks_diff
@@ -23,20 +25,32 @@ class Mirror:
         self.buf = bytearray(BUFFER)
         self.n = 0
         self.skipped = 0
+        self.failed = 0  # errno of the write the filesystem refused (0: none)
 
     def write(self, slot, length):
         """Framer hook: called with each new frame's ring slot and length."""
-        if self.size + self.n + length > self.max_bytes:
+        if self.failed or self.size + self.n + length > self.max_bytes:
             self.skipped += 1
             return
         buf = self.buf
         for k in range(length):
             if self.n == BUFFER:
-                self.f.write(buf)
+                if not self._put(buf):
+                    self.skipped += 1
+                    return
                 self.size += BUFFER
                 self.n = 0
             buf[self.n] = slot[k]
             self.n += 1
+
+    def _put(self, data):
+        try:
+            self.f.write(data)
+            return True
+        except OSError as exc:
+            self.failed = exc.args[0] if exc.args else -1
+            self.n = 0
+            return False
 
     def poll(self, now_ms):
         if ticks_diff(now_ms, self.next_flush) >= 0:
@@ -44,12 +58,22 @@ class Mirror:
             self.flush()
 
     def flush(self):
+        if self.failed:
+            return
         if self.n:
-            self.f.write(memoryview(self.buf)[: self.n])  # one small allocation per flush
+            # one small allocation per flush
+            if not self._put(memoryview(self.buf)[: self.n]):
+                return
             self.size += self.n
             self.n = 0
-        self.f.flush()
+        try:
+            self.f.flush()
+        except OSError as exc:
+            self.failed = exc.args[0] if exc.args else -1
 
     def close(self):
         self.flush()
-        self.f.close()
+        try:
+            self.f.close()
+        except OSError:
+            pass

@@ -1,20 +1,19 @@
 """Paced sampling: each stream on its own period, from the tick counter.
 
 A paced loop, not a timer interrupt: poll() is called as often as the main
-loop turns, takes every sample that is due (one per stream per call, so a late
-loop catches up without bursts) and stamps it with its nominal, scheduled
-tick. How late each sample really was is measured: the largest delay since the
-last STATUS (jitter_us) and the count of samples more than one period late
-(late). A loop that falls more than MAX_BEHIND_US behind skips ahead on the
-period grid and counts the skipped samples as late, so a stall never turns
-into an endless catch-up.
+loop turns, takes every sample that is due and stamps it with its nominal,
+scheduled tick. A sample is taken only while it is less than one period
+overdue, so its value was read within one period of its tick (the largest
+delay since the last STATUS is jitter_us). A sample the loop reaches later
+than that (a stall: a flash write, a collection, a slow command) is skipped,
+never read late under its old tick: the stream jumps to the newest due point
+of its period grid, its block is sent first (the grid restarts in a new
+frame, so the laptop sees the gap), and every skipped sample is counted in
+`late` (STATUS) and in the stream's own `skipped`. For each stream, samples
+taken + skipped = grid points due since start(), exactly.
 """
 
-from compat import const
-
 from clock import UNIT, UNIT_BITS
-
-MAX_BEHIND_US = const(500000)
 
 
 class Stream:
@@ -27,6 +26,7 @@ class Stream:
         self.hi = 0  # nominal tick of the next sample
         self.lo = 0
         self.count = 0  # samples taken in this run
+        self.skipped = 0  # samples skipped in this run: their moment had passed
 
 
 class Sampler:
@@ -35,7 +35,7 @@ class Sampler:
         self.framer = framer
         self.streams = streams
         self.max_age_us = max_age_us  # a block older than this is sent part-full
-        self.late = 0
+        self.late = 0  # samples skipped in this run, all streams
         self.jitter_us = 0
 
     def start(self):
@@ -46,6 +46,7 @@ class Sampler:
             s.hi = c.hi
             s.lo = c.lo
             s.count = 0
+            s.skipped = 0
             s.block.n = 0
         self.late = 0
         self.jitter_us = 0
@@ -60,26 +61,22 @@ class Sampler:
         taken = 0
         for s in self.streams:
             dh = hi - s.hi
-            if dh > 1:
-                self._skip(s, hi, lo)
-                continue
+            if dh > 1:  # over 2**29 us behind: not a small-int difference
+                self._skip_far(s, hi, lo)
+                dh = hi - s.hi
             d = (dh << UNIT_BITS) + (lo - s.lo)  # how late the next sample is, us
             if d >= 0:
-                if d > MAX_BEHIND_US:
-                    self._skip(s, hi, lo)
-                    continue
+                p = s.period
+                n = d // p
+                if n:  # its moment has passed: skip to the newest due grid point
+                    self._skip(s, n)
+                    d -= n * p
                 framer.sample(s.block, s.read(), s.hi, s.lo)
                 s.count += 1
                 taken += 1
                 if d > self.jitter_us:
                     self.jitter_us = d
-                if d >= s.period:
-                    self.late += 1
-                nlo = s.lo + s.period
-                while nlo >= UNIT:
-                    nlo -= UNIT
-                    s.hi += 1
-                s.lo = nlo
+                self._advance(s, p)
             b = s.block
             if b.n:
                 age = ((hi - b.hi) << UNIT_BITS) + (lo - b.lo)
@@ -87,11 +84,31 @@ class Sampler:
                     framer.flush_block(b)
         return taken
 
-    def _skip(self, s, hi, lo):
-        """Jump to the first period boundary after now; count what was skipped."""
+    def _advance(self, s, us):
+        """Move the stream's next tick on by us (< 2**29)."""
+        nlo = s.lo + us
+        while nlo >= UNIT:
+            nlo -= UNIT
+            s.hi += 1
+        s.lo = nlo
+
+    def _skip(self, s, n):
+        """Skip n grid points; the block ends here so the grid restarts in a new frame."""
         self.framer.flush_block(s.block)
-        behind = ((hi - s.hi) << UNIT_BITS) + (lo - s.lo)  # may exceed a small int: rare
-        n = behind // s.period + 1
+        s.skipped += n
+        self.late += n
+        step = s.period * n  # under 2**30: n * period <= d < 2**30
+        while step >= UNIT:
+            self._advance(s, UNIT - 1)
+            step -= UNIT - 1
+        self._advance(s, step)
+
+    def _skip_far(self, s, hi, lo):
+        """A stall of minutes: skip to within one period of now (big ints: rare)."""
+        behind = ((hi - s.hi) << UNIT_BITS) + (lo - s.lo)
+        n = behind // s.period
+        self.framer.flush_block(s.block)
+        s.skipped += n
         self.late += n
         t = (s.hi << UNIT_BITS) + s.lo + n * s.period
         s.hi = t >> UNIT_BITS

@@ -33,9 +33,10 @@ ACK = const(6)
 ERROR = const(7)
 END = const(8)
 COMMAND = const(9)
+INFO = const(10)  # the board's identity and state, answering CMD_INFO
 KIND_NAMES = {
     1: "descriptor", 2: "samples", 3: "events", 4: "status", 5: "sync",
-    6: "ack", 7: "error", 8: "end", 9: "command",
+    6: "ack", 7: "error", 8: "end", 9: "command", 10: "info",
 }
 
 # Command opcodes (first byte of a COMMAND body after the header).
@@ -46,8 +47,9 @@ CMD_PING = const(4)
 CMD_RESEND = const(5)
 CMD_STATUS = const(6)
 CMD_PULL = const(7)  # stream the board's file mirror over the link
+CMD_INFO = const(8)  # answered by one INFO frame
 COMMAND_NAMES = {1: "start", 2: "stop", 3: "set_config", 4: "ping", 5: "resend", 6: "status",
-                 7: "pull"}
+                 7: "pull", 8: "info"}
 # Opcode bit: the arguments end with u32 counter + 32-byte HMAC-SHA256 tag (SPEC 3.9.1).
 AUTH_FLAG = const(0x80)
 AUTH_TRAILER_SIZE = const(36)
@@ -112,6 +114,9 @@ END_FIXED = "<QIB"  # tick, frames in run (incl. this one), reason; then stream 
 END_FIXED_SIZE = const(13)
 END_STREAM = "<BI"  # stream, samples produced in the run
 END_STREAM_SIZE = const(5)
+INFO_FIXED = "<HQBBBBII"  # request, tick, fw major/minor/patch, flags, counter_floor, mirror_bytes
+INFO_FIXED_SIZE = const(22)  # then config_sha (CONFIG_SHA_SIZE bytes), name, profile (texts)
+CONFIG_SHA_SIZE = const(8)  # first bytes of SHA-256 of the board's /config.json: a check, not a seal
 COMMAND_FIXED = "<BH"  # opcode, request; then the arguments
 COMMAND_FIXED_SIZE = const(3)
 START_ARGS = "<I"  # duration_s (0: until stop); then label (short string)
@@ -133,6 +138,18 @@ ERROR_FIELDS = ("request", "opcode", "code", "detail_a", "detail_b")
 END_FIELDS = ("tick", "frames", "reason")
 END_STREAM_FIELDS = ("stream", "samples")
 COMMAND_FIELDS = ("opcode", "request")
+INFO_FIELDS = ("request", "tick", "fw_major", "fw_minor", "fw_patch", "flags", "counter_floor",
+               "mirror_bytes")
+# INFO flags (one bit each; the rest are zero).
+INFO_KEYED = const(1)  # the board has a key: start/stop/set_config/pull must be sealed
+INFO_RUNNING = const(2)  # a run is going (the header's run id is that run)
+INFO_CONFIG_FALLBACK = const(4)  # /config.json was refused at boot: the last good one (or defaults) runs
+INFO_CONFIG_SAVED = const(8)  # set_config wrote a new /config.json since boot: it runs from the next boot
+INFO_NO_CONFIG_FILE = const(16)  # no /config.json to hash: config_sha is all zeros
+INFO_MIRROR = const(32)  # the board keeps a file mirror (mirror_bytes is its size)
+INFO_COIL_ON = const(64)  # the coil is energised now (either polarity)
+INFO_FLAG_NAMES = {1: "keyed", 2: "running", 4: "config_fallback", 8: "config_saved",
+                   16: "no_config_file", 32: "mirror", 64: "coil_on"}
 
 # ---- BLE GATT identity (our own random 128-bit UUIDs) -------------------------
 SERVICE_UUID = "c3f6d394-a77f-46d8-8777-2be58d2f9a9c"
@@ -363,6 +380,24 @@ class Encoder:
             struct.pack_into(END_STREAM, self.body, off, stream, count)
             off += END_STREAM_SIZE
         return self.finish(off)
+
+    def info_body(self, request, tick, fw, flags, counter_floor, mirror_bytes, config_sha, name,
+                  profile):
+        """Write an INFO body into self.body; return its length. The board seals it
+        into a ring slot (Framer.emit); info() seals it into self.out."""
+        off = self.begin(INFO)
+        struct.pack_into(INFO_FIXED, self.body, off, request, tick, fw[0], fw[1], fw[2], flags,
+                         counter_floor, mirror_bytes)
+        off += INFO_FIXED_SIZE
+        if len(config_sha) != CONFIG_SHA_SIZE:
+            raise ValueError("config_sha must be CONFIG_SHA_SIZE bytes")
+        self.body[off : off + CONFIG_SHA_SIZE] = config_sha
+        off = self._text(off + CONFIG_SHA_SIZE, name)
+        return self._text(off, profile)
+
+    def info(self, request, tick, fw, flags, counter_floor, mirror_bytes, config_sha, name, profile):
+        return self.finish(self.info_body(request, tick, fw, flags, counter_floor, mirror_bytes,
+                                          config_sha, name, profile))
 
     # -- laptop -> board (seq is the laptop's own command counter) --
     def command(self, opcode, request, args=b""):

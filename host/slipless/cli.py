@@ -50,6 +50,11 @@ def build_parser() -> argparse.ArgumentParser:
     m.add_argument("--seconds", type=float, default=180.0,
                    help="simulated run length, 60 to 3600 (default 180)")
     m.add_argument("--seed", type=int, default=1)
+    from slipless.sim.links import DEFAULT_LINK, LINKS
+
+    m.add_argument("--link", choices=tuple(LINKS), default=DEFAULT_LINK,
+                   help="the radio link: " + "; ".join(f"{k}: {v.what}" for k, v in LINKS.items())
+                   + f" (default {DEFAULT_LINK})")
 
     f = sub.add_parser("flash", help="check a config, compile and copy the firmware to a board, verify")
     f.add_argument("--port", help="the board's serial port, e.g. /dev/ttyUSB0 or COM3 (not needed "

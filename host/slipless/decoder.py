@@ -457,7 +457,7 @@ class Decoder:
         elif kind == wire.SYNC:
             self._anchor(run, seq, f["tx_tick"], kind)
             self.sink.reply(run, seq, kind, f)
-        else:  # ACK, ERROR
+        else:  # ACK, ERROR, INFO
             self.sink.reply(run, seq, kind, f)
 
     def _anchor(self, run: RunState, seq: int, tick: int, kind: int) -> None:

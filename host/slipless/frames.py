@@ -13,8 +13,10 @@ import struct
 from typing import Any
 
 from construct import (
+    Bytes,
     Construct,
     ConstructError,
+    ExprAdapter,
     Float32l,
     GreedyBytes,
     GreedyRange,
@@ -63,11 +65,16 @@ EndStream = Struct(*fields(wire.END_STREAM, wire.END_STREAM_FIELDS))
 End = Struct(*fields(wire.END_FIXED, wire.END_FIELDS), "totals" / GreedyRange(EndStream),
              Terminated)
 Command = Struct(*fields(wire.COMMAND_FIXED, wire.COMMAND_FIELDS), "args" / GreedyBytes)
+# The config hash reads as hex text (tables write reply fields as JSON).
+ConfigSha = ExprAdapter(Bytes(wire.CONFIG_SHA_SIZE), lambda obj, _ctx: bytes(obj).hex(),
+                         lambda obj, _ctx: bytes.fromhex(obj))
+Info = Struct(*fields(wire.INFO_FIXED, wire.INFO_FIELDS), "config_sha" / ConfigSha,
+              "name" / Text, "profile" / Text, Terminated)
 
 BODIES: dict[int, Construct] = {
     wire.DESCRIPTOR: Descriptor, wire.SAMPLES: Samples, wire.EVENTS: Events,
     wire.STATUS: Status, wire.SYNC: Sync, wire.ACK: Ack, wire.ERROR: Error, wire.END: End,
-    wire.COMMAND: Command,
+    wire.COMMAND: Command, wire.INFO: Info,
 }
 
 

@@ -41,6 +41,7 @@ class RecordOptions:
     resend_every_s: float = 0.5  # how often gaps are turned into RESEND commands
     backoff_s: tuple[float, ...] = (0.2, 0.5, 1.0, 2.0, 5.0)
     max_reconnects: int = 1000
+    first_tries: int = 3  # connection attempts before the run has started (retryable errors only)
     drain_s: float = 2.0  # after STOP, wait this long for END and late frames
     board: int = 0xFFFF  # command target (0xFFFF: whichever board answers)
     start: bool = True  # send START on the first connection
@@ -92,6 +93,7 @@ class Progress:
     battery_mv: int = 0
     state: str = "idle"
     lost_ranges: list[tuple[int, int]] = field(default_factory=list)
+    link_error: str = ""  # why the last connection attempt failed (empty once connected)
 
 
 class Recorder:
@@ -199,26 +201,30 @@ class Recorder:
             self._move("connecting")
             try:
                 await self.central.connect(self._on_data, self._on_disconnect)
-            except LinkError:
-                if not self._started or attempt >= self.opts.max_reconnects:
+            except LinkError as exc:
+                self.progress.link_error = str(exc)
+                self.capture.event(0, "connect_failed", reason=str(exc), retry=exc.retry)
+                if not self._gives_another_try(exc, attempt):
                     self._move("done")
                     raise
                 await self._back_off(attempt)
                 attempt += 1
                 continue
             attempt = 0
+            self.progress.link_error = ""
             self._dropped.clear()
-            self.capture.event(0, "connected", mtu=self.central.mtu, address=self.central.address)
+            info: dict[str, Any] = dict(self.central.link_info())  # MTU, write size, interval...
+            info.update(mtu=self.central.mtu, address=self.central.address)
+            self.capture.event(0, "connected", **info)
             self._move("live")
-            if self.opts.pull and not self._started:
-                await self._send(self._guarded(wire.CMD_PULL))
-            elif self.opts.start and not self._started:
-                label = self.opts.label.encode()
-                await self._send(self._guarded(
-                    wire.CMD_START, struct.pack(wire.START_ARGS, int(self.opts.duration_s))
-                    + bytes([len(label)]) + label))
-            self._started = True
-            await self._live(deadline)
+            try:
+                await self._begin()
+                await self._live(deadline)
+            except LinkError as exc:  # a write failed: the link went before its callback said so
+                if not exc.retry:
+                    self._move("done")
+                    raise
+                self._dropped.set()
             if (self._stop.is_set() or self.sink.ended or self.sink.pulled
                     or (self.opts.pull and self.sink.last_error)):
                 break
@@ -233,6 +239,25 @@ class Recorder:
         self.decoder.finish()
         self._update()
         return self.progress
+
+    def _gives_another_try(self, exc: LinkError, attempt: int) -> bool:
+        """Back off and try again? Never for what waiting cannot mend (no Bluetooth,
+        a board without our GATT service); before the run has started only a few
+        times (a board switched on late is found, a mistyped name ends soon)."""
+        if not exc.retry or attempt >= self.opts.max_reconnects:
+            return False
+        return self._started or attempt + 1 < self.opts.first_tries
+
+    async def _begin(self) -> None:
+        """The first connection's command: PULL or START (once they went, never again)."""
+        if self.opts.pull and not self._started:
+            await self._send(self._guarded(wire.CMD_PULL))
+        elif self.opts.start and not self._started:
+            label = self.opts.label.encode()
+            await self._send(self._guarded(
+                wire.CMD_START, struct.pack(wire.START_ARGS, int(self.opts.duration_s))
+                + bytes([len(label)]) + label))
+        self._started = True
 
     async def _back_off(self, attempt: int) -> None:
         self._move("waiting")

@@ -38,6 +38,7 @@ def add_parsers(sub: Any) -> None:
                    help="bleak: the laptop's Bluetooth (default); bumble: an HCI dongle")
     r.add_argument("--transport", default="usb:0",
                    help="bumble transport spec (default usb:0)")
+    _add_notify_option(r)
     r.add_argument("--duration", type=float, default=0.0, metavar="S",
                    help="stop after S seconds (default: until the run ends or Ctrl-C)")
     r.add_argument("--label", default="", help="run label sent with START (at most 32 bytes)")
@@ -57,9 +58,16 @@ def add_parsers(sub: Any) -> None:
     p.add_argument("--board", dest="target", metavar="NAME|ADDRESS", help="board to connect to")
     p.add_argument("--backend", choices=BACKENDS, default="bleak")
     p.add_argument("--transport", default="usb:0", help="bumble transport spec")
+    _add_notify_option(p)
     p.add_argument("--out", type=Path, required=True, metavar="FILE",
                    help="where to write it (an existing file is never overwritten)")
     _add_key_options(p)
+
+
+def _add_notify_option(p: Any) -> None:
+    p.add_argument("--notify-method", choices=("start", "acquire"), default="start",
+                   help="BlueZ only: notifications as D-Bus signals (StartNotify, default) or "
+                        "through a socket (AcquireNotify)")
 
 
 def _add_key_options(p: Any) -> None:
@@ -90,7 +98,10 @@ def _central(args: argparse.Namespace) -> tuple[Any, Any]:
     if args.backend == "bleak":
         from slipless.transports.bleak_central import BleakCentral
 
-        return BleakCentral(args.target), None
+        try:
+            return BleakCentral(args.target, notify_method=args.notify_method), None
+        except LinkError as exc:
+            raise InputError(str(exc)) from exc
     try:
         from bumble.device import Device
         from bumble.hci import Address
@@ -152,7 +163,7 @@ def status_line(p: Progress, started: float) -> Text:
                 f"{p.samples:,} samples ({p.samples / dt:,.0f}/s)  gaps {p.gaps} "
                 f"(missing {p.missing})  resends pending {p.resends_pending}  "
                 f"lost {sum(b - a + 1 for a, b in p.lost_ranges)}  reconnects {p.reconnects}  "
-                f"battery {bat}")
+                f"battery {bat}" + (f"  link: {p.link_error}" if p.link_error else ""))
 
 
 def check_new_file(path: Path, what: str) -> None:

@@ -13,6 +13,7 @@ the rest "missing".
 
 from __future__ import annotations
 
+import hashlib
 import json
 import struct
 import sys
@@ -49,6 +50,10 @@ def status(board, run, tick, **kw):
          "queue_high": 4, "dropped": 0, "late": 0, "jitter_us": 85}
     a.update(kw.pop("fields", {}))
     return {"board": board, "run": run, "op": "status", **kw, "args": a}
+
+
+def info(board, run, **args):
+    return {"board": board, "run": run, "op": "info", "args": args}
 
 
 def op(board, run, name, **args):
@@ -166,9 +171,27 @@ def cases():
            "sealed start and stop (SPEC 3.9.1), key = bytes 0x00..0x1f, counters 1 and 2",
            [sealed(0, wire.CMD_START, 1, struct.pack("<I", 60) + b"\x02ab", 1),
             sealed(1, wire.CMD_STOP, 2, b"", 2)], [])
+    yield ("info", "INFO replies (a keyed board mid-run, coil on, with a mirror; edge values) and the "
+           "INFO command, plain and sealed",
+           [info(1, 7, request=3, tick=3_600_000_000, fw=[0, 3, 0],
+               flags=wire.INFO_KEYED | wire.INFO_RUNNING | wire.INFO_MIRROR | wire.INFO_COIL_ON,
+               counter_floor=65,
+               mirror_bytes=123_456, config_sha=INFO_SHA, name="rotor-a",
+               profile="esp32-devkitc"),
+            info(2, 1, request=65535, tick=(1 << 64) - 1, fw=[255, 255, 255],
+               flags=(wire.INFO_CONFIG_FALLBACK | wire.INFO_CONFIG_SAVED
+                      | wire.INFO_NO_CONFIG_FILE), counter_floor=0xFFFFFFFF,
+               mirror_bytes=0xFFFFFFFF, config_sha="00" * wire.CONFIG_SHA_SIZE,
+               name="rotor-\u00e4" + "x" * 12, profile="p" * wire.MAX_TEXT),
+            op(0xFFFF, 0, "info_request", request=4),
+            sealed(1, wire.CMD_INFO, 5, b"", 3)], [])
 
 
 AUTH_KEY = bytes(range(32))  # the vector's key (common practice: any 32 bytes)
+# INFO's config_sha: the first 8 bytes of SHA-256 (FIPS 180-4, CPython's hashlib) over
+# a config file's bytes as `slipless flash` writes them (compact JSON).
+INFO_CONFIG_TEXT = b'{"board_id":1,"name":"rotor-a"}'
+INFO_SHA = hashlib.sha256(INFO_CONFIG_TEXT).digest()[: wire.CONFIG_SHA_SIZE].hex()
 
 
 def sealed(seq, opcode, request, args, counter):
@@ -255,7 +278,7 @@ def expected(case_ops, frames, lost, damaged, damage):
         if i in lost:
             continue
         if o["op"] in ("start", "stop", "set_config", "ping", "resend", "status_request",
-                       "command"):
+                       "info_request", "command"):
             exp["counters"]["commands"] += 1
             continue
         if o["op"] == "raw" and o["args"]["version"] != wire.VERSION:
@@ -353,7 +376,7 @@ def _content(exp, o, key, seq, periods):
         exp["status"].append([b, r, seq, a["tick"], a["battery_mv"], a["temp_cdeg"],
                               a["free_ram"], a["queue_high"], a["dropped"], a["late"],
                               a["jitter_us"]])
-    elif o["op"] in ("sync", "ack", "error", "end"):
+    elif o["op"] in ("sync", "ack", "error", "end", "info"):
         exp["replies"].append([b, r, seq, o["op"]])
 
 

@@ -44,12 +44,17 @@ def _one(enc, op):
         n = enc.error(a["request"], a["opcode"], a["code"], a["detail_a"], a["detail_b"])
     elif name == "end":
         n = enc.end(a["tick"], a["reason"], [(t[0], t[1]) for t in a["totals"]])
+    elif name == "info":
+        n = enc.info(a["request"], a["tick"], a["fw"], a["flags"], a["counter_floor"],
+                     a["mirror_bytes"], bytes.fromhex(a["config_sha"]), a["name"], a["profile"])
     elif name == "start":
         n = enc.start(a["request"], a["duration_s"], a["label"])
     elif name == "stop":
         n = enc.command(wire.CMD_STOP, a["request"])
     elif name == "status_request":
         n = enc.command(wire.CMD_STATUS, a["request"])
+    elif name == "info_request":
+        n = enc.command(wire.CMD_INFO, a["request"])
     elif name == "set_config":
         n = enc.set_config(a["request"], a["key"], a["value"])
     elif name == "ping":

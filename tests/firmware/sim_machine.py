@@ -2,7 +2,9 @@
 has no hardware). It logs every pin write in order, so a test can see that the
 H-bridge is driven off before anything else happens at boot, and its watchdog
 ends the run after a set number of feeds (KeyboardInterrupt, which the board's
-loop does not catch)."""
+loop does not catch). Its ADC logs what it is made on and has only read_u16()
+(as the rp2 port); CalibratedADC adds read_uv() as the ESP32 port has it (the
+values here are set by the test, not calibrated)."""
 
 LOG = []
 FEEDS_LEFT = [300]
@@ -31,16 +33,27 @@ class Pin:
 
 class ADC:
     ATTN_0DB, ATTN_2_5DB, ATTN_6DB, ATTN_11DB = 0, 1, 2, 3
+    U16 = [None]  # a fixed read_u16() value for every ADC, or None: a sawtooth
 
     def __init__(self, src):
         self.k = 0
+        LOG.append(("adc", src.pin if isinstance(src, Pin) else src))
 
     def atten(self, a):
         pass
 
     def read_u16(self):
+        if self.U16[0] is not None:
+            return self.U16[0]
         self.k = (self.k + 997) & 0xFFFF
         return self.k
+
+
+class CalibratedADC(ADC):
+    UV = [1650000]  # what read_uv() returns, microvolts
+
+    def read_uv(self):
+        return self.UV[0]
 
 
 class I2C:

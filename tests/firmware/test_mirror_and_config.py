@@ -78,3 +78,56 @@ print(c['board_id'], err)
     assert out[0] == "7 None"
     assert out[1] == "7 config.board_id: must be between 1 and 65534"
     assert out[2] == "7 config: not valid JSON"
+
+
+def test_full_filesystem_stops_the_mirror_not_the_run(board_runtime) -> None:
+    """The filesystem refuses a write (ENOSPC, errno 28 in POSIX): the mirror stops and
+    says why; sampling, the link and the run's END go on as before."""
+    path = CONFIG["mirror"]["path"]
+    enc = wire.Encoder(0xFFFF, 0)
+    start = enc.frame(enc.start(1, 0, "")).hex()
+    stop = enc.frame(enc.command(wire.CMD_STOP, 2)).hex()
+    code = f"""
+import json, config, os
+from board import Board
+from mirror import Mirror
+from simhw import SimHW, SinkLink
+class FullDisk:
+    def __init__(self, f, room):
+        self.f = f
+        self.room = room
+    def write(self, data):
+        if len(data) > self.room:
+            raise OSError(28)
+        self.room -= len(data)
+        return self.f.write(data)
+    def flush(self):
+        self.f.flush()
+    def close(self):
+        self.f.close()
+try:
+    os.remove({path!r})
+except OSError:
+    pass
+cfg = config.validate(json.loads({json.dumps(CONFIG)!r}))
+cfg['mirror']['max_bytes'] = 1 << 20
+hw = SimHW()
+m = cfg['mirror']
+mirror = Mirror(m['path'], m['max_bytes'], m['flush_every_ms'], hw.ticks_ms())
+mirror.f = FullDisk(mirror.f, 3000)
+hw.on_frame = mirror.write
+b = Board(cfg, hw, hw.next_run_id())
+sink = SinkLink(b.ring)
+b.link = sink
+b.command_bytes(bytes.fromhex({start!r}))
+for i in range(10000):
+    hw.advance(200)
+    b.poll()
+    mirror.poll(hw.ticks_ms())
+b.command_bytes(bytes.fromhex({stop!r}))
+for i in range(50):
+    hw.advance(200)
+    b.poll()
+print(mirror.failed, mirror.skipped > 0, b.ended, os.stat({path!r})[6] <= 3000)
+"""
+    assert board_runtime(code).split() == ["28", "True", "True", "True"]

@@ -3,6 +3,8 @@ stall, the outage, loss at the dead angle and the truth it keeps."""
 
 from __future__ import annotations
 
+import math
+
 import pytest
 
 from slipless.protocol import wire
@@ -79,3 +81,36 @@ def test_resend_requests_are_noted_when_the_laptop_sends_them() -> None:
     r.wrote(host.frame(host.ping(10, 123)), 3.5)
     r.wrote(host.frame(host.resend(11, 42, 44)), 4.0)
     assert r.truth.asked == {40: 3.0, 41: 3.0, 42: 3.0, 43: 3.0, 44: 4.0}
+
+
+# Hand arithmetic for a link without Data Length Extension. A notification's
+# value rides in an ATT PDU (opcode 1 + handle 2 octets) inside an L2CAP frame
+# (4-octet header), cut into link-layer payloads of at most 27 octets (251 with
+# DLE: Bluetooth Core Specification v4.2; references.md, LE Data Length
+# Extension). A 244-byte value: 244 + 3 + 4 = 251 octets -> ceil(251 / 27) = 10
+# packets; a 20-byte value (ATT MTU 23): 27 octets -> 1 packet. Six packets per
+# 50 ms connection event is common practice, not a spec figure.
+SLOW = {"interval_s": 0.050, "per_event": 6, "ll_payload": 27}
+
+
+def test_a_244_byte_notification_is_ten_packets_without_dle_and_one_with() -> None:
+    assert link(**SLOW).packets(244) == 10 and link(**SLOW).packets(20) == 1
+    assert link(**SLOW).packets(21) == 2  # 28 octets
+    assert link(ll_payload=251).packets(244) == 1  # 251 octets: one DLE payload
+
+
+def test_throughput_at_50_ms_without_dle_follows_the_hand_arithmetic() -> None:
+    r = link(**SLOW)
+    # 100 notifications offered at once (events at 0, 50, 100 ms ...): the i-th
+    # (from 1) ends with packet 10 i, in event ceil(10 i / 6) - 1
+    times = [r.next_event(0.0, 244) for _ in range(100)]
+    assert times == [pytest.approx(0.050 * (math.ceil(10 * i / 6) - 1)) for i in range(1, 101)]
+    in_first_second = sum(1 for t in times if t < 1.0 - 1e-9)  # 20 events x 6 = 120 packets
+    assert in_first_second == 12  # -> 12 x 244 = 2,928 B/s
+    assert r.carries_Bps(244) == pytest.approx(12 * 244)
+    # at the default ATT MTU: 20-byte values, one packet each: 6 x 20 per 50 ms = 2,400 B/s
+    r = link(**SLOW)
+    times = [r.next_event(0.0, 20) for _ in range(240)]
+    assert sum(1 for t in times if t < 1.0 - 1e-9) == 120 and r.carries_Bps(20) == pytest.approx(2400)
+    # with DLE and 4 packets per 15 ms event, one 244-byte notification per packet
+    assert link(interval_s=0.015, per_event=4).carries_Bps(244) == pytest.approx(244 * 4 / 0.015)

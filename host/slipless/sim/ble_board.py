@@ -8,32 +8,45 @@ task: when it is full, gatts_notify raises OSError(ENOMEM) as a board's stack
 does, and the firmware retries later. A radio model (sim.rotating_link) may
 sit in the stack: it times notifications and writes to connection events,
 loses some, stalls the link and ends the connection as a real radio would.
+
+The link's connection parameters and link-layer payload come from a
+sim.links.AirLink: the laptop's stack connects with its interval, latency and
+supervision timeout, and the controllers cut ACL data at 251 octets (Data
+Length Extension) or 27. The board's stack raises _IRQ_CONNECTION_UPDATE with
+the connection's parameters once after connecting and again whenever bumble
+reports an update. (A MicroPython port raises it only on an update; the
+firmware has no other way to learn them, so the shim tells it at connect too.)
 """
 
 from __future__ import annotations
 
 import asyncio
+import dataclasses
 import errno
 import sys
 from collections import deque
 from collections.abc import Callable
 from typing import Any
 
-from bumble import gatt
+from bumble import gatt, hci, ll
 from bumble.controller import Controller
 from bumble.core import UUID as BumbleUUID
-from bumble.device import Connection, Device
+from bumble.device import Connection, ConnectionParametersPreferences, Device
 from bumble.hci import Address
 from bumble.host import Host
 from bumble.link import LocalLink
 from bumble.transport.common import AsyncPipeSink
 
 from slipless.boardfiles import firmware_dir, protocol_dir
+from slipless.sim.links import DEFAULT_LINK, LINKS, AirLink
 
 _IRQ_CENTRAL_CONNECT = 1
 _IRQ_CENTRAL_DISCONNECT = 2
 _IRQ_GATTS_WRITE = 3
 _IRQ_MTU_EXCHANGED = 21
+_IRQ_CONNECTION_UPDATE = 27  # data: handle, interval (1.25 ms), latency, timeout (10 ms), status
+INTERVAL_UNIT_MS = 1.25  # connection interval steps (Core Vol 6 Part B 4.5.1, from memory)
+TIMEOUT_UNIT_MS = 10.0  # supervision timeout steps
 QUEUE = 8  # notifications the "controller" holds before refusing more
 HCI_CONNECTION_TIMEOUT = 0x08  # "Connection Timeout", Core Specification error codes (from memory)
 
@@ -41,18 +54,62 @@ FIRMWARE = firmware_dir()
 PROTOCOL = protocol_dir()
 
 
-def virtual_pair() -> tuple[Device, Device]:
+class _Laptop(Device):
+    """A bumble Device that connects with its own connection parameters: on
+    a laptop the operating system's stack picks them, not the application."""
+
+    def __init__(self, link: AirLink, *args: Any, **kw: Any) -> None:
+        super().__init__(*args, **kw)
+        self.preferences = ConnectionParametersPreferences(
+            connection_interval_min=link.interval_ms, connection_interval_max=link.interval_ms,
+            max_latency=link.latency, supervision_timeout=int(link.supervision_ms))
+
+    async def connect(self, *args: Any, **kw: Any) -> Connection:
+        if len(args) < 3:  # (address, transport, preferences): the caller chose none
+            kw.setdefault("connection_parameters_preferences",
+                          {hci.HCI_LE_1M_PHY: self.preferences})
+        return await super().connect(*args, **kw)
+
+
+class _BoardController(Controller):
+    """bumble's software controller, except that as the peripheral it reports
+    the parameters the central sent in its CONNECT_IND (bumble's own reports
+    fixed placeholders there)."""
+
+    _ind: ll.ConnectInd | None = None
+
+    def on_le_connect_ind(self, packet: ll.ConnectInd) -> None:
+        self._ind = packet
+        try:
+            super().on_le_connect_ind(packet)
+        finally:
+            self._ind = None
+
+    def send_hci_packet(self, packet: hci.HCI_Packet) -> None:
+        ind = self._ind
+        if ind is not None and isinstance(packet, hci.HCI_LE_Connection_Complete_Event):
+            packet = dataclasses.replace(packet, connection_interval=ind.interval,
+                                         peripheral_latency=ind.latency,
+                                         supervision_timeout=ind.timeout)
+        super().send_hci_packet(packet)
+
+
+def virtual_pair(link: AirLink | None = None) -> tuple[Device, Device]:
     """Two bumble Devices (laptop, board) on software controllers joined by
-    bumble's in-process link: real HCI, L2CAP, ATT and GATT, no radio. The
-    controllers use LE Data Length Extension (251-byte link-layer payloads,
-    Bluetooth Core Specification v4.2), as boards sending 244-byte
-    notifications do."""
-    link = LocalLink()
-    devices = []
+    bumble's in-process link: real HCI, L2CAP, ATT and GATT, no radio. `link`
+    (default: sim.links' "fast") sets the connection parameters the laptop
+    connects with and the link-layer payload: 251 octets with LE Data Length
+    Extension, as boards sending 244-byte notifications use, 27 without
+    (Bluetooth Core Specification v4.2)."""
+    link = link or LINKS[DEFAULT_LINK]
+    air = LocalLink()
+    devices: list[Device] = []
     for i, addr in enumerate(("F0:F0:F0:F0:F0:F0", "F1:F1:F1:F1:F1:F1")):
-        ctrl = Controller(f"C{i}", link=link, public_address=addr)
-        ctrl.le_acl_data_packet_length = 251
-        devices.append(Device(address=Address(addr), host=Host(ctrl, AsyncPipeSink(ctrl))))
+        ctrl = (_BoardController if i else Controller)(f"C{i}", link=air, public_address=addr)
+        ctrl.le_acl_data_packet_length = link.ll_payload
+        host = Host(ctrl, AsyncPipeSink(ctrl))
+        devices.append(Device(address=Address(addr), host=host) if i
+                       else _Laptop(link, address=Address(addr), host=host))
     return devices[0], devices[1]
 
 
@@ -83,6 +140,7 @@ class BLE:
         self._wake = asyncio.Event()
         self.notified = 0
         self.refused = 0
+        self.updates: list[tuple[int, int, int, int, int]] = []  # _IRQ_CONNECTION_UPDATE data raised
         self._loop = asyncio.get_running_loop()
         self._drainer = self._loop.create_task(self._drain())
         self._watcher = self._loop.create_task(radio.watch()) if radio is not None else None
@@ -176,7 +234,18 @@ class BLE:
         connection.on(connection.EVENT_DISCONNECTION, self._on_disconnection)
         connection.on(connection.EVENT_CONNECTION_ATT_MTU_UPDATE,
                       lambda: self._irq(_IRQ_MTU_EXCHANGED, (connection.handle, connection.att_mtu)))
+        connection.on(connection.EVENT_CONNECTION_PARAMETERS_UPDATE,
+                      lambda: self._parameters(connection))
         self._irq(_IRQ_CENTRAL_CONNECT, (connection.handle, 0, bytes(6)))
+        self._parameters(connection)
+
+    def _parameters(self, connection: Connection) -> None:
+        """Tell the board the connection's parameters in MicroPython's units."""
+        p = connection.parameters
+        data = (connection.handle, round(p.connection_interval / INTERVAL_UNIT_MS),
+                p.peripheral_latency, round(p.supervision_timeout / TIMEOUT_UNIT_MS), 0)
+        self.updates.append(data)
+        self._irq(_IRQ_CONNECTION_UPDATE, data)
 
     def _on_disconnection(self, reason: int) -> None:
         conn = self._conn
@@ -207,7 +276,7 @@ class BLE:
                     conn = self._conn
                     # the first event after the stack took it: one it may have missed
                     # while the one before it was being delivered still counts
-                    at = self.radio.next_event(self._queue[0][2])
+                    at = self.radio.next_event(self._queue[0][2], len(self._queue[0][0]))
                     await asyncio.sleep(max(0.0, at - self._loop.time()))
                     if conn is not self._conn or not self._queue:
                         continue  # the connection ended while waiting for its event
@@ -275,8 +344,11 @@ class VirtualBoard:
         self.board = Board(cfg, self.hw, self.hw.next_run_id())
         self.board.mirror = self.mirror
         self.bt = BluetoothModule(device, radio)
+        # as main.py builds it (on a stack that refuses when full: no pacing)
+        params = getattr(self.board, "conn_params", None)  # firmware that logs them
         self.board.link = Link(self.bt.BLE(), self.bt, cfg["name"], self.board.ring,
-                               self.board.command_bytes)
+                               self.board.command_bytes,
+                               **({"on_conn_params": params} if params is not None else {}))
 
     def poll(self) -> None:
         """One turn of the board's main loop at the present board time."""

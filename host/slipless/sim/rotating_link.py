@@ -4,7 +4,10 @@ Scenario of our own (invented, for the demo and tests). It sits inside the
 board's simulated BLE stack (sim.ble_board.BLE) and decides when and whether
 each notification and each laptop write gets across:
 - connection events: notifications leave at the connection interval, a few
-  per event, and reach the laptop's application after its stack's latency;
+  link-layer packets per event, and reach the laptop's application after its
+  stack's latency; a notification takes as many packets as its ATT PDU needs
+  at the link-layer payload (one with Data Length Extension, about ten for a
+  244-byte notification without it: sim.links) and arrives with its last;
   a laptop write reaches the board at the next event after that latency;
   each connection has its own event phase;
 - the dead sector: while the board's antenna faces it (once per turn), what
@@ -31,13 +34,15 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 
 from slipless.protocol import wire
+from slipless.sim.links import LL_PAYLOAD_DLE, packets
 
 
 @dataclass
 class LinkPlan:
     seed: int = 1
     interval_s: float = 0.015  # connection interval
-    per_event: int = 4  # notifications per connection event
+    per_event: int = 4  # link-layer packets per connection event
+    ll_payload: int = LL_PAYLOAD_DLE  # octets per link-layer packet (27 without DLE)
     host_delay_s: float = 0.001  # mean latency of the laptop's stack, each way (exponential)
     dead_from_deg: float = 200.0
     dead_to_deg: float = 236.0
@@ -110,21 +115,36 @@ class RotatingLink:
             k = self._k(quiet)
         return k
 
-    def next_event(self, now: float) -> float:
-        """When a notification offered now reaches the laptop: at the first
-        connection event with room for it (per_event), plus the laptop stack's
-        latency (one draw per event: the event's packets come up together)."""
+    def packets(self, value_len: int) -> int:
+        """Link-layer packets a notification of value_len bytes takes."""
+        return packets(value_len, self.plan.ll_payload)
+
+    def next_event(self, now: float, value_len: int = 0) -> float:
+        """When a notification of value_len bytes offered now reaches the
+        laptop: its packets fill the connection events from the first with
+        room (per_event packets each); it arrives with the event carrying its
+        last packet, plus the laptop stack's latency (one draw per event: the
+        event's packets come up together)."""
         p = self.plan
         k = max(self._k(now), self._event_k)
-        if k == self._event_k and self._in_event >= p.per_event:
-            k += 1
-        k = self._open(k)
-        if k != self._event_k:
-            self._event_k, self._in_event = k, 0
-            self._deliver_at = self._at(k) + (self._rng.expovariate(1.0 / p.host_delay_s)
-                                              if p.host_delay_s else 0.0)
-        self._in_event += 1
+        left = self.packets(value_len)
+        while left:
+            if k == self._event_k and self._in_event >= p.per_event:
+                k += 1
+            k = self._open(k)
+            if k != self._event_k:
+                self._event_k, self._in_event = k, 0
+                self._deliver_at = self._at(k) + (self._rng.expovariate(1.0 / p.host_delay_s)
+                                                  if p.host_delay_s else 0.0)
+            took = min(left, p.per_event - self._in_event)
+            self._in_event += took
+            left -= took
         return self._deliver_at
+
+    def carries_Bps(self, value_len: int) -> float:  # noqa: N802 - B/s: bytes, not bits
+        """Notification bytes per second through open events, every
+        notification value_len bytes (the hand arithmetic the model follows)."""
+        return value_len * self.plan.per_event / self.packets(value_len) / self.plan.interval_s
 
     def write_arrives(self, now: float) -> float | None:
         """When a laptop write sent now reaches the board (None: never, the

@@ -5,14 +5,26 @@ decoding never needs a BLE stack: `bleak` (the laptop's own Bluetooth) and
 A Central connects to one board, subscribes to its data characteristic and
 hands every notification to `on_data`; `on_disconnect` is called when the
 link drops. The recorder (record.py) owns everything else.
+
+Link failures are LinkErrors whose class says whether trying again can help
+(`retry`): the recorder backs off and tries again, or stops with the one line.
 """
 
 from __future__ import annotations
 
+import re
 from collections.abc import Callable
-from typing import Protocol
+from typing import Any, Protocol
 
 BACKENDS = ("bleak", "bumble")
+
+# The keys of Central.link_info(), in order (see each back end for how it knows them).
+LINK_INFO_KEYS = ("backend", "backend_version", "os", "address", "address_kind", "mtu",
+                  "write_size", "interval_ms")
+
+_MAC = re.compile(r"^[0-9A-Fa-f]{2}(:[0-9A-Fa-f]{2}){5}$")
+# CoreBluetooth names a peripheral by a UUID of its own per host (RFC 9562 text form)
+_UUID = re.compile(r"^[0-9A-Fa-f]{8}-[0-9A-Fa-f]{4}-[0-9A-Fa-f]{4}-[0-9A-Fa-f]{4}-[0-9A-Fa-f]{12}$")
 
 
 class Central(Protocol):
@@ -27,6 +39,42 @@ class Central(Protocol):
 
     async def disconnect(self) -> None: ...
 
+    def link_info(self) -> dict[str, Any]: ...
+
 
 class LinkError(Exception):
     """The board could not be found, connected or subscribed to."""
+
+    retry = True  # may trying again (after a back-off) help?
+
+
+class NoBluetooth(LinkError):
+    """No adapter, Bluetooth switched off, or not permitted to use it: waiting will
+    not change that, the user must."""
+
+    retry = False
+
+
+class BoardNotFound(LinkError):
+    """The scan ended without the board (off, out of range, still booting)."""
+
+
+class ConnectFailed(LinkError):
+    """The board was seen but the connection, service discovery or subscription failed."""
+
+
+class WrongGatt(LinkError):
+    """The board answers but lacks our service or characteristics: other firmware,
+    or the operating system's GATT cache is stale."""
+
+    retry = False
+
+
+def address_kind(target: str) -> str | None:
+    """'mac' for XX:XX:XX:XX:XX:XX, 'uuid' for a CoreBluetooth identifier, None
+    for anything else (a board name)."""
+    if _MAC.match(target):
+        return "mac"
+    if _UUID.match(target):
+        return "uuid"
+    return None
