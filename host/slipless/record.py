@@ -120,6 +120,7 @@ class Recorder:
         self.commands_sent = 0
         self._sealed: dict[int, bytes] = {}  # opcode -> args of the last sealed command
         self.auth_error = ""  # why the board refused a sealed command (not retryable)
+        self._not_held_seen = 0
 
     def _now(self) -> float:
         return float(self.clock.mono_ns()) / 1e9
@@ -344,7 +345,9 @@ class Recorder:
         p.resends_pending = sum(1 for r in runs for g in r.gaps
                                 if (r.board, r.run, g[0]) in self._requested)
         p.battery_mv = self.sink.battery_mv
-        p.lost_ranges = _ranges(sorted(self.sink.not_held))
+        if len(self.sink.not_held) != self._not_held_seen:  # (only grows: sort on change)
+            self._not_held_seen = len(self.sink.not_held)
+            p.lost_ranges = _ranges(sorted(self.sink.not_held))
         if self.on_progress is not None:
             self.on_progress(p)
 

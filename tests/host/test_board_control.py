@@ -4,8 +4,8 @@ hardware layer, MicroPython's `bluetooth` API on a bumble Device) and the
 command line on the bumble back end, over bumble's virtual link, in simulated
 time (sim.virtual_time). The only stand-in is where the command line opens its
 bumble transport: it gets the laptop Device of the virtual pair instead of a
-USB dongle (none can exist here). One gap of the emulator is filled: see
-`scan_responses_carry_their_data`."""
+USB dongle (none can exist here). The virtual pair's laptop controller reports
+scan responses as a real controller does (sim/ble_board._LaptopController)."""
 
 from __future__ import annotations
 
@@ -82,35 +82,6 @@ class Bench:
             vb.close()
 
         return laptop, close
-
-
-@pytest.fixture(autouse=True)
-def scan_responses_carry_their_data(monkeypatch: pytest.MonkeyPatch) -> None:
-    """bumble's software controller (0.0.236) answers an active scan with the
-    advertising data again (controller.py builds its SCAN_RSP report with
-    data=pdu.data), so the name a board puts in its scan response never arrives.
-    A real controller reports the advertiser's scan response data (Bluetooth Core
-    Specification, SCAN_RSP PDU; from memory): this makes the emulator's report
-    carry it. It changes the stand-in radio, not our code."""
-    from bumble import controller, hci
-
-    ext = hci.HCI_LE_Extended_Advertising_Report_Event
-    real = controller.Controller.send_hci_packet
-
-    def send(self: Any, packet: Any) -> None:
-        if isinstance(packet, (ext, hci.HCI_LE_Advertising_Report_Event)):
-            for r in packet.reports:
-                scan_rsp = (r.event_type & ext.EventType.SCAN_RESPONSE if isinstance(packet, ext)
-                            else r.event_type == hci.HCI_LE_Advertising_Report_Event.EventType.SCAN_RSP)
-                advertiser = self.link.find_le_controller(r.address) if scan_rsp else None
-                if advertiser is not None:
-                    sets = [bytes(a.scan_response_data)
-                            for a in getattr(advertiser, "advertising_sets", {}).values()]
-                    r.data = bytes(advertiser.le_legacy_advertiser.scan_response_data) or (
-                        sets[0] if sets else r.data)
-        real(self, packet)
-
-    monkeypatch.setattr(controller.Controller, "send_hci_packet", send)
 
 
 @pytest.fixture

@@ -17,14 +17,14 @@ CONFIG = {
 }
 
 
-async def session() -> dict[str, Any]:
+async def session(target: str | None = None) -> dict[str, Any]:
     laptop_dev, board_dev = ble_board.virtual_pair()
     await laptop_dev.power_on()
     await board_dev.power_on()
     vb = ble_board.VirtualBoard(board_dev, CONFIG)
     stop = asyncio.Event()
     task = asyncio.create_task(vb.run(stop, 1000))
-    central = BumbleCentral(laptop_dev, None, scan_s=5)
+    central = BumbleCentral(laptop_dev, target, scan_s=5)
     await central.connect(lambda d: None, lambda w: None)
     info = central.link_info()
     await central.disconnect()
@@ -43,3 +43,9 @@ def test_bumble_link_info() -> None:
     # LE connection intervals are 7.5 ms to 4 s (Core Specification Vol 6 Part B 4.5.1,
     # from memory)
     assert 7.5 <= info["interval_ms"] <= 4000
+
+
+def test_board_found_by_its_advertised_name() -> None:
+    """The name rides in the board's scan response (firmware/link.py adv_payload)."""
+    info = virtual_time.run(session("rotor-info"))
+    assert info["address"] == "F1:F1:F1:F1:F1:F1"

@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import json
 import os
+import shutil
 import subprocess
 import sys
 from pathlib import Path
@@ -30,8 +31,14 @@ def run(cmd: list[str], cwd: Path, timeout: float = 600) -> subprocess.Completed
 @pytest.fixture(scope="module")
 def installed(tmp_path_factory) -> Path:
     tmp = tmp_path_factory.mktemp("wheel")
+    # Built from a copy: setuptools reuses a build/ folder, whose stale files would
+    # land in the wheel and hide a missing one.
+    src = tmp / "src"
+    shutil.copytree(REPO, src, ignore=shutil.ignore_patterns(
+        ".git", ".venv", "node_modules", "build", "*.egg-info", ".pytest_cache", ".hypothesis",
+        ".fuzz", "demo-out", "__pycache__", "*.mpy"))
     run([sys.executable, "-m", "pip", "wheel", "--no-deps", "--no-build-isolation", "--quiet",
-         "-w", str(tmp / "dist"), str(REPO)], tmp)
+         "-w", str(tmp / "dist"), str(src)], tmp)
     (wheel,) = (tmp / "dist").glob("slipless-*.whl")
     run([getattr(sys, "_base_executable", sys.executable), "-m", "venv", str(tmp / "venv")], tmp)
     run([str(tmp / "venv" / "bin" / "python"), "-m", "pip", "install", "--quiet",

@@ -94,6 +94,28 @@ class _BoardController(Controller):
         super().send_hci_packet(packet)
 
 
+class _LaptopController(Controller):
+    """bumble's software controller (0.0.236) answers an active scan with the
+    advertising data again (its SCAN_RSP report carries data=pdu.data), so the
+    name a board puts in its scan response never arrives. A real controller
+    reports the advertiser's scan response data (Bluetooth Core Specification,
+    SCAN_RSP PDU; from memory): this one does too, so a board is found by name."""
+
+    def send_hci_packet(self, packet: hci.HCI_Packet) -> None:
+        ext = hci.HCI_LE_Extended_Advertising_Report_Event
+        if isinstance(packet, (ext, hci.HCI_LE_Advertising_Report_Event)):
+            for r in packet.reports:
+                scan_rsp = (r.event_type & ext.EventType.SCAN_RESPONSE if isinstance(packet, ext)
+                            else r.event_type == hci.HCI_LE_Advertising_Report_Event.EventType.SCAN_RSP)
+                advertiser = self.link.find_le_controller(r.address) if scan_rsp else None
+                if advertiser is not None:
+                    sets = [bytes(a.scan_response_data)
+                            for a in getattr(advertiser, "advertising_sets", {}).values()]
+                    r.data = bytes(advertiser.le_legacy_advertiser.scan_response_data) or (
+                        sets[0] if sets else r.data)
+        super().send_hci_packet(packet)
+
+
 def virtual_pair(link: AirLink | None = None) -> tuple[Device, Device]:
     """Two bumble Devices (laptop, board) on software controllers joined by
     bumble's in-process link: real HCI, L2CAP, ATT and GATT, no radio. `link`
@@ -105,7 +127,8 @@ def virtual_pair(link: AirLink | None = None) -> tuple[Device, Device]:
     air = LocalLink()
     devices: list[Device] = []
     for i, addr in enumerate(("F0:F0:F0:F0:F0:F0", "F1:F1:F1:F1:F1:F1")):
-        ctrl = (_BoardController if i else Controller)(f"C{i}", link=air, public_address=addr)
+        ctrl = (_BoardController if i else _LaptopController)(f"C{i}", link=air,
+                                                               public_address=addr)
         ctrl.le_acl_data_packet_length = link.ll_payload
         host = Host(ctrl, AsyncPipeSink(ctrl))
         devices.append(Device(address=Address(addr), host=host) if i

@@ -7,16 +7,19 @@ this to offer the names.
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 
-# Largest link-layer data payload: 27 octets without Data Length Extension,
-# up to 251 with it (Bluetooth Core Specification v4.2, Vol 6 Part B 2.4).
-LL_PAYLOAD = 27
-LL_PAYLOAD_DLE = 251
-L2CAP_HEADER = 4  # length + channel id, before the ATT PDU (Core Vol 3 Part A)
-NOTIFY_HEADER = 3  # ATT opcode + attribute handle, before a notification's value
-DEFAULT_MTU = 23  # ATT MTU until an exchange (Core Vol 3 Part F): 20-byte notifications
+# The link layer's numbers live with the budget, which does the same arithmetic
+# for real links: 27-octet payloads without Data Length Extension, 251 with it
+# (Core v4.2), the L2CAP and ATT notification headers, the default ATT MTU.
+from slipless.budget import ATT_MTU_MIN as DEFAULT_MTU
+from slipless.budget import ATT_NOTIFY_HEADER as NOTIFY_HEADER
+from slipless.budget import L2CAP_HEADER, LL_PAYLOAD_DLE
+from slipless.budget import LL_PAYLOAD_BASIC as LL_PAYLOAD
+from slipless.budget import ll_pdus as packets
+
+__all__ = ["DEFAULT_MTU", "L2CAP_HEADER", "LL_PAYLOAD", "LL_PAYLOAD_DLE", "NOTIFY_HEADER",
+           "AirLink", "LINKS", "DEFAULT_LINK", "packets"]
 
 
 @dataclass(frozen=True)
@@ -32,12 +35,6 @@ class AirLink:
     @property
     def ll_payload(self) -> int:
         return LL_PAYLOAD_DLE if self.dle else LL_PAYLOAD
-
-
-def packets(value_len: int, ll_payload: int) -> int:
-    """A notification is an ATT PDU in an L2CAP frame, cut into link-layer
-    payloads of at most ll_payload octets."""
-    return max(1, math.ceil((value_len + NOTIFY_HEADER + L2CAP_HEADER) / ll_payload))
 
 
 LINKS: dict[str, AirLink] = {
