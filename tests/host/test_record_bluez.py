@@ -95,6 +95,14 @@ def test_record_default_backend_cut_reconnect_resend(system_bus: str, tmp_path: 
     # The MTU recorded is the one bluetoothd would publish after its exchange: the
     # board's 247 (its link.py asks for 244-byte notifications), not bleak's 23.
     assert [e["mtu"] for e in events if e["event"] == "connected"] == [247, 247]
+    # what recorded it and what the link was, beside the data
+    connected = [e for e in events if e["event"] == "connected"]
+    assert all(e["backend"] == "bleak" and e["write_size"] == 244 and "interval_ms" in e
+               for e in connected)
+    with out.open("rb") as f:
+        meta = capture.CaptureReader(f).meta
+    assert meta["label"] == "bluez" and meta["backend"] == "bleak"
+    assert meta["recorder"]["os"] and "bleak" in meta["recorder"]["packages"]
     assert len(disconnections) >= 2  # the cut, then the recorder's own hang-up at the end
     # the default: StartNotify, notifications as Value PropertiesChanged signals
     assert any(entry[1] == "start_notify" for entry in log)
@@ -122,6 +130,16 @@ async def record_direct(tmp: Path, method: str, rig: DoubleThread) -> tuple[Reco
     await rec.run()
     writer.close()
     return rec, central
+
+
+def test_record_cli_takes_acquire_notify(system_bus: str, tmp_path: Path) -> None:
+    out = tmp_path / "acquire.slcap"
+    with DoubleThread(system_bus, CONFIG) as rig:
+        code = main(["record", "--out", str(out), "--duration", "1.5", "--insecure",
+                     "--notify-method", "acquire"])
+        assert rig.double is not None
+        log = [entry[1] for entry in rig.double.log]
+    assert code == 0 and "acquire_notify" in log and "start_notify" not in log
 
 
 @pytest.mark.parametrize("method", ["start", "acquire"])
