@@ -135,19 +135,9 @@ def run_board(args: argparse.Namespace, console: Console) -> int:
 
 def _check_config(path: Path) -> None:
     from slipless.boardfiles import firmware_dir
-    from slipless.flash import load_board_config_module
+    from slipless.flash import load_board_config_module, parse_config_file
 
-    cfgmod = load_board_config_module(firmware_dir())
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise InputError(f"{path}: config file not found") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"{path}: cannot read config ({exc})") from None
-    try:
-        cfgmod.parse(text)
-    except cfgmod.ConfigError as exc:
-        raise InputError(f"{path}: {exc}") from None
+    parse_config_file(load_board_config_module(firmware_dir()), path)
 
 
 # ---- back ends ------------------------------------------------------------------------

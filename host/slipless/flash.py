@@ -103,6 +103,20 @@ def load_profile(fw: Path, name: str) -> dict:
     return prof
 
 
+def parse_config_file(cfgmod, path: Path) -> tuple[str, dict]:
+    """-> (the file's text, the validated config), or InputError naming the file."""
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise InputError(f"{path}: config file not found") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"{path}: cannot read config ({exc})") from None
+    try:
+        return text, cfgmod.parse(text)
+    except cfgmod.ConfigError as exc:
+        raise InputError(f"{path}: {exc}") from None
+
+
 def resolve_config(fw: Path, config_path: Path | None, board: str | None) -> tuple[dict, dict]:
     """-> (validated config, profile), or InputError naming the file and field."""
     cfgmod = load_board_config_module(fw)
@@ -110,16 +124,7 @@ def resolve_config(fw: Path, config_path: Path | None, board: str | None) -> tup
         config = cfgmod.validate({})
         given_profile = None
     else:
-        try:
-            text = config_path.read_text(encoding="utf-8")
-        except FileNotFoundError:
-            raise InputError(f"{config_path}: config file not found") from None
-        except (OSError, UnicodeDecodeError) as exc:
-            raise InputError(f"{config_path}: cannot read config ({exc})") from None
-        try:
-            config = cfgmod.parse(text)
-        except cfgmod.ConfigError as exc:
-            raise InputError(f"{config_path}: {exc}") from None
+        text, config = parse_config_file(cfgmod, config_path)
         raw = json.loads(text)  # parse() succeeded, so this is a JSON object
         given_profile = raw.get("profile")
     if board and given_profile and board != given_profile:

@@ -181,14 +181,9 @@ def check_new_file(path: Path, what: str) -> None:
 
 def host_info() -> dict[str, Any]:
     """What recorded the run: the capture header keeps it beside the data."""
-    from importlib.metadata import PackageNotFoundError, version
+    from slipless.transports import package_version
 
-    found = {}
-    for pkg in ("bleak", "bumble", "dbus-fast"):
-        try:
-            found[pkg] = version(pkg)
-        except PackageNotFoundError:
-            pass
+    found = {pkg: v for pkg in ("bleak", "bumble", "dbus-fast") if (v := package_version(pkg))}
     return {"os": platform.system(), "os_release": platform.release(),
             "machine": platform.machine(), "python": platform.python_version(),
             "packages": found}

@@ -78,3 +78,24 @@ def address_kind(target: str) -> str | None:
     if _UUID.match(target):
         return "uuid"
     return None
+
+
+def package_version(name: str) -> str:
+    """The installed version of a distribution, or "" (a source tree without metadata)."""
+    from importlib import metadata
+
+    try:
+        return metadata.version(name)
+    except metadata.PackageNotFoundError:
+        return ""
+
+
+def link_facts(backend: str, address: str, kind: str | None, mtu: int, write_size: int,
+               interval_ms: float | None) -> dict[str, Any]:
+    """A Central's link_info(): what the link is, for the capture (LINK_INFO_KEYS)."""
+    import platform
+
+    return {"backend": backend, "backend_version": package_version(backend),
+            "os": f"{platform.system()} {platform.release()}", "address": address,
+            "address_kind": kind, "mtu": mtu, "write_size": write_size,
+            "interval_ms": interval_ms}

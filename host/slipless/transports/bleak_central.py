@@ -23,7 +23,6 @@ from __future__ import annotations
 import asyncio
 import platform
 from collections.abc import Callable
-from importlib import metadata
 from typing import Any
 
 from slipless.protocol import wire
@@ -34,6 +33,7 @@ from slipless.transports import (
     NoBluetooth,
     WrongGatt,
     address_kind,
+    link_facts,
 )
 
 NOTIFY_METHODS = ("start", "acquire")  # BlueZ StartNotify / AcquireNotify
@@ -189,15 +189,9 @@ class BleakCentral:
 
     def link_info(self) -> dict[str, Any]:
         """What this link is, for the capture (keys: transports.LINK_INFO_KEYS)."""
-        try:
-            version = metadata.version("bleak")
-        except metadata.PackageNotFoundError:
-            version = ""
-        return {"backend": "bleak", "backend_version": version,
-                "os": f"{platform.system()} {platform.release()}", "address": self.address,
-                "address_kind": self._address_kind, "mtu": self.mtu,
-                "write_size": self.write_size(),
-                "interval_ms": None}  # no bleak back end reports the connection interval
+        # no bleak back end reports the connection interval
+        return link_facts("bleak", self.address, self._address_kind, self.mtu, self.write_size(),
+                          None)
 
 
 def _backend(client: Any) -> str:

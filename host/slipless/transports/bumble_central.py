@@ -7,9 +7,7 @@ with a Device on bumble's virtual link.
 from __future__ import annotations
 
 import asyncio
-import platform
 from collections.abc import Callable
-from importlib import metadata
 from typing import Any
 
 from bumble.core import UUID
@@ -22,6 +20,7 @@ from slipless.transports import (
     LinkError,
     WrongGatt,
     address_kind,
+    link_facts,
 )
 
 REQUESTED_MTU = 247  # 244-byte notifications (ATT MTU - 3)
@@ -131,11 +130,5 @@ class BumbleCentral:
             self._kind = "public" if conn.peer_address.is_public else "random"
             # bumble keeps the interval in milliseconds (HCI's 1.25 ms units already applied)
             self._interval_ms = float(conn.parameters.connection_interval) or None
-        try:
-            version = metadata.version("bumble")
-        except metadata.PackageNotFoundError:
-            version = ""
-        return {"backend": "bumble", "backend_version": version,
-                "os": f"{platform.system()} {platform.release()}", "address": self.address,
-                "address_kind": self._kind, "mtu": self.mtu, "write_size": self.mtu - 3,
-                "interval_ms": self._interval_ms}
+        return link_facts("bumble", self.address, self._kind, self.mtu, self.mtu - 3,
+                          self._interval_ms)
