@@ -72,8 +72,31 @@ def test_flash_dry_run_from_the_wheel(installed: Path) -> None:
         assert dest in out
 
 
-def test_demo_from_the_wheel(installed: Path) -> None:
+def test_demo_and_every_analysis_from_the_wheel(installed: Path) -> None:
+    """The demo's capture through every command that reads one; record, pull and
+    board need a radio or a board and are covered by --help above."""
     exe = str(installed / "venv" / "bin" / "slipless")
-    out = run([exe, "demo", "--seconds", "60", "--out", str(installed / "demo")], installed).stdout
+    demo = installed / "demo"
+    out = run([exe, "demo", "--seconds", "60", "--out", str(demo)], installed).stdout
     assert "loss (radio only):" in out and ": closes" in out
-    assert (installed / "demo" / "report.html").is_file()
+    assert (demo / "report.html").is_file()
+    cap, mirror = str(demo / "run.slcap"), str(demo / "run.mirror")
+    work = installed / "again"
+    run([exe, "decode", cap, "--mirror", mirror, "--out", str(work / "tables")], installed)
+    assert (work / "tables" / "samples.csv").stat().st_size > 0
+    loss = json.loads(run([exe, "loss", cap, "--mirror", mirror, "--json"], installed).stdout)
+    assert loss["closes"]
+    run([exe, "align", cap, "--grid", "10ms", "--out", str(work / "aligned")], installed)
+    assert (work / "aligned" / "clock.json").is_file()
+    rig = run([exe, "predict", "--inner-mm", "20", "--outer-mm", "40", "--cap-length-mm", "100",
+               "--turns", "500", "--coil-length-mm", "200", "--coil-radius-mm", "50", "--amps",
+               "2", "--rpm", "60", "--json"], installed).stdout
+    (work / "rig.json").write_text(rig)
+    run([exe, "pulses", cap, "--out", str(work / "pulses"), "--prediction",
+         str(work / "rig.json")], installed)
+    assert (work / "pulses" / "summary.json").is_file()
+    run([exe, "report", cap, "--mirror", mirror, "--out", str(work / "run.html")], installed)
+    assert (work / "run.html").stat().st_size > 0
+    cfg = installed / "rig-config.json"
+    cfg.write_text((REPO / "firmware" / "config.example.json").read_text())
+    run([exe, "budget", "--config", str(cfg), "--link", "fast"], installed)
