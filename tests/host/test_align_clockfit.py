@@ -6,6 +6,8 @@ Sources named beside each check:
 - The lower-envelope objective of Moon, Skelly and Towsley (1999), solved
   independently with scipy.optimize.linprog (HiGHS) on every point.
 - scipy.spatial.ConvexHull (Qhull) as an independent convex hull.
+- The feasible band and the least loosening, each posed again for
+  scipy.optimize.linprog (HiGHS) with one row per point and every window.
 The last test is a property test of our own: any stamps give a model or a FitError.
 """
 
@@ -21,11 +23,13 @@ from scipy.spatial import ConvexHull
 from slipless.clockfit import (
     FitError,
     envelope_line,
+    feasible_band,
     fit_envelope,
+    least_loosening,
     lower_hull,
     onwire,
     piecewise,
-    smallest_round_trips,
+    window_vertices,
 )
 from slipless.clockmodel import Exchanges, fit_clock
 
@@ -45,12 +49,6 @@ def test_onwire_asymmetric_paths_err_by_half_the_difference() -> None:
     theta, delta = onwire(np.array([0.0]), np.array([0.140]), np.array([0.145]), np.array([0.055]))
     assert theta[0] == pytest.approx(0.115, abs=1e-12)
     assert delta[0] == pytest.approx(0.050, abs=1e-12)
-
-
-def test_smallest_round_trips_keeps_the_fastest() -> None:
-    delay = np.array([5.0, 1.0, 9.0, 2.0, 7.0, 3.0])
-    assert smallest_round_trips(delay, fraction=0.5, at_least=1).tolist() == [1, 3, 5]
-    assert smallest_round_trips(delay, fraction=0.0, at_least=8).tolist() == list(range(6))
 
 
 def _qhull_lower(x: np.ndarray, y: np.ndarray) -> set[int]:
@@ -150,3 +148,90 @@ def test_fit_clock_on_any_stamps_fits_or_says_why(pairs: list[tuple[int, int]],
     except FitError:
         return
     assert np.isfinite(m.uncertainty_s) and np.isfinite(m.skew_ppm)
+
+
+def _band_problem(seed: int, windows: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray,
+                                                   np.ndarray]:
+    """A drifting curve with receive times above it and forward legs below."""
+    rng = np.random.default_rng(seed)
+    x = np.sort(rng.uniform(0, 600 * windows, 300 * windows))
+    xf = np.sort(rng.uniform(0, 600 * windows, 40 * windows))
+
+    def truth(t: np.ndarray) -> np.ndarray:
+        return 3e-5 * t + 1e-9 * (t - 300 * windows) ** 2
+
+    return (x, truth(x) + rng.exponential(0.05, x.size), xf,
+            truth(xf) - rng.exponential(0.01, xf.size), np.linspace(0, 600 * windows, windows + 1))
+
+
+def _every_point_rows(x: np.ndarray, knots: np.ndarray) -> np.ndarray:
+    win = np.clip(np.searchsorted(knots, x, side="right") - 1, 0, knots.size - 2)
+    lam = (x - knots[win]) / (knots[win + 1] - knots[win])
+    a = np.zeros((x.size, knots.size))
+    a[np.arange(x.size), win] = 1 - lam
+    a[np.arange(x.size), win + 1] = lam
+    return a
+
+
+def _linprog_band(x: np.ndarray, y: np.ndarray, xf: np.ndarray, yf: np.ndarray, knots: np.ndarray,
+                  at: np.ndarray, slack: float, max_slope: float) -> np.ndarray:
+    """Reference: min and max of the curve at each of `at` by linprog, one row
+    per point (no hull reduction), every window at once."""
+    nk = knots.size
+    step = (np.eye(nk, k=1) - np.eye(nk))[:-1]
+    run = max_slope * np.diff(knots)
+    a = np.vstack([_every_point_rows(x, knots), -_every_point_rows(xf, knots), step, -step]) * 1e3
+    b = np.r_[y + slack, -(yf - slack), run, run] * 1e3
+    out = []
+    for t in at:
+        obj = _every_point_rows(np.array([t]), knots)[0]
+        lo = linprog(obj, A_ub=a, b_ub=b, bounds=(None, None), method="highs")
+        hi = linprog(-obj, A_ub=a, b_ub=b, bounds=(None, None), method="highs")
+        assert lo.status == 0 and hi.status == 0
+        out.append((lo.fun, -hi.fun))
+    return np.array(out).T
+
+
+@pytest.mark.parametrize("seed", range(3))
+def test_feasible_band_agrees_with_linprog_on_every_point(seed: int) -> None:
+    x, y, xf, yf, knots = _band_problem(seed, 3)
+    at = np.r_[knots, -50.0, 1900.0]  # the knots and two extrapolated ends
+    lo, hi = feasible_band(window_vertices(x, y, knots), window_vertices(xf, yf, knots, upper=True),
+                           knots, at, 1e-4, 0.01)  # reach 2 covers all three windows
+    ref_lo, ref_hi = _linprog_band(x, y, xf, yf, knots, at, 1e-4, 0.01)
+    assert lo == pytest.approx(ref_lo, abs=1e-9)
+    assert hi == pytest.approx(ref_hi, abs=1e-9)
+
+
+def test_a_short_reach_only_widens_the_band() -> None:
+    # Leaving far windows out relaxes the problem: the band can only grow.
+    x, y, xf, yf, knots = _band_problem(5, 8)
+    at = knots
+    lo, hi = feasible_band(window_vertices(x, y, knots), window_vertices(xf, yf, knots, upper=True),
+                           knots, at, 0.0, 0.01, reach=1)
+    ref_lo, ref_hi = _linprog_band(x, y, xf, yf, knots, at, 0.0, 0.01)
+    assert np.all(lo <= ref_lo + 1e-9) and np.all(hi >= ref_hi - 1e-9)
+    assert np.all(hi - lo < 0.2)  # still a band, not the slope limit alone
+
+
+def test_least_loosening_matches_linprog_and_opens_the_band() -> None:
+    x, y, xf, yf, knots = _band_problem(9, 2)
+    yf = yf.copy()
+    yf[7] = y.max() + 0.03  # one forward leg from beyond every receive time
+    ceiling, floor = window_vertices(x, y, knots), window_vertices(xf, yf, knots, upper=True)
+    with pytest.raises(FitError):
+        feasible_band(ceiling, floor, knots, knots, 0.0, 0.01)
+    ours = least_loosening(ceiling, floor, knots, 0.0, 0.01)
+    # Reference: min e s.t. curve <= y + e, curve >= yf - e, slopes limited, every point.
+    nk = knots.size
+    step = (np.eye(nk, k=1) - np.eye(nk))[:-1]
+    run = 0.01 * np.diff(knots)
+    a = np.vstack([np.c_[_every_point_rows(x, knots), -np.ones(x.size)],
+                   np.c_[-_every_point_rows(xf, knots), -np.ones(xf.size)],
+                   np.c_[step, np.zeros(nk - 1)], np.c_[-step, np.zeros(nk - 1)]])
+    res = linprog(np.r_[np.zeros(nk), 1.0], A_ub=a * 1e3, b_ub=np.r_[y, -yf, run, run] * 1e3,
+                  bounds=[(None, None)] * nk + [(0, None)], method="highs")
+    assert res.status == 0
+    assert ours == pytest.approx(res.x[-1], abs=1e-9) and ours > 0
+    lo, hi = feasible_band(ceiling, floor, knots, knots, ours + 1e-9, 0.01)
+    assert np.all(lo <= hi)

@@ -154,10 +154,17 @@ def test_slow_link_demo_numbers(slow_demo: tuple[str, Path]) -> None:
     assert [e["mtu"] for e in links if e["event"] == "connected"] == [247, 247]  # MTU kept
 
 
-@pytest.mark.xfail(strict=True, reason="clockmodel's bound does not hold when every frame waits "
-                   "in a full queue (a saturated link): the envelope tilts")
 def test_slow_link_clock_stays_inside_its_bound(slow_demo: tuple[str, Path]) -> None:
-    assert re.search(r"clock: skew .* inside the bound", slow_demo[0])
+    # Every frame (SYNC replies too) waits in the full queue; the PING writes do not,
+    # so the forward legs hold the clock: the wait does not become clock error, and
+    # the bound is as wide as the receive times leave it (the truth is the scenario's).
+    m = re.search(r"clock: skew ([-+]\d+\.\d\d) ppm \(simulated \+23\.00\); mapped time off by at "
+                  r"most (\d+\.\d\d) ms over the run, inside the bound\s+\+-(\d+\.\d\d) ms", slow_demo[0])
+    assert m, slow_demo[0]
+    err_ms, bound_ms = float(m.group(2)), float(m.group(3))
+    assert err_ms <= bound_ms
+    assert err_ms < 100.0  # frames waited a median 0.85 s (the scenario line above)
+    assert abs(float(m.group(1)) - 23.0) < 2000.0  # the receive times' envelope alone says -7,100
 
 
 def test_bad_link_name_is_one_line(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
