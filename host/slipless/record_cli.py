@@ -227,13 +227,18 @@ async def _record(args: argparse.Namespace, console: Console, signer: Any = None
                        lambda p: live.update(status_line(p, started), refresh=True))
         loop = asyncio.get_running_loop()
         loop.add_signal_handler(signal.SIGINT, rec.stop)  # Ctrl-C: STOP, drain, close
+        never_connected = False
         try:
             progress = await rec.run()
         except LinkError as exc:
-            raise InputError(str(exc)) from exc
+            never_connected = rec.commands_sent == 0  # nothing heard or said: no recording
+            raise InputError(str(exc) + (f" (no capture kept: {args.out} removed)"
+                                         if never_connected else "")) from exc
         finally:
             loop.remove_signal_handler(signal.SIGINT)
             writer.close()
+            if never_connected:
+                args.out.unlink(missing_ok=True)  # else the next try would be refused
             if transport is not None:
                 await transport.close()
     console.print(f"capture written to {args.out} ({writer.records:,} records, "

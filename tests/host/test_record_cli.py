@@ -39,3 +39,14 @@ def test_capture_header_says_what_recorded_it() -> None:
     info = host_info()
     assert {"os", "os_release", "python", "packages"} <= set(info)
     assert "bleak" in info["packages"] and "bumble" in info["packages"]  # default dependencies
+
+
+def test_no_bluetooth_leaves_no_capture_behind(tmp_path: Path, capsys, monkeypatch) -> None:
+    """bleak finds no system bus (no BlueZ here: the bus address is a path that does
+    not exist): one line, and no empty capture left to block the next try."""
+    monkeypatch.setenv("DBUS_SYSTEM_BUS_ADDRESS", f"unix:path={tmp_path / 'no-bus'}")
+    out = tmp_path / "run.slcap"
+    assert main(["record", "--insecure", "--duration", "1", "--out", str(out)]) == 2
+    err = one_line_error(capsys)
+    assert "Bluetooth is not available" in err and "no capture kept" in err
+    assert not out.exists()
