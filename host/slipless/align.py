@@ -164,7 +164,7 @@ def _utc(clock: RunClock | None, ticks: np.ndarray) -> Any:
 
 
 def _write_samples(col: Collected, clocks: dict[Key, RunClock], out: Path, fmt: str) -> None:
-    table = Table(out / f"samples.{fmt}", fmt, _columns("samples"))
+    table = Table(out / f"samples.{fmt}", fmt, _columns("samples"), utc_twins={TIME_COL: "laptop_utc"})
     for (b, r, s) in sorted(col.sink.channels):
         ch = col.sink.channels[(b, r, s)]
         seq, tick, raw = ch.arrays()
@@ -179,7 +179,7 @@ def _write_samples(col: Collected, clocks: dict[Key, RunClock], out: Path, fmt: 
 
 
 def _write_events(col: Collected, clocks: dict[Key, RunClock], out: Path, fmt: str) -> None:
-    table = Table(out / f"events.{fmt}", fmt, _columns("events"))
+    table = Table(out / f"events.{fmt}", fmt, _columns("events"), utc_twins={TIME_COL: "laptop_utc"})
     rows = sorted(col.sink.events, key=lambda e: (e[0], e[1], e[3], e[2]))
     for key in sorted({(e[0], e[1]) for e in rows}):
         ev = [e for e in rows if (e[0], e[1]) == key]
@@ -193,7 +193,7 @@ def _write_events(col: Collected, clocks: dict[Key, RunClock], out: Path, fmt: s
 
 
 def _write_status(col: Collected, clocks: dict[Key, RunClock], out: Path, fmt: str) -> None:
-    table = Table(out / f"status.{fmt}", fmt, _columns("status"))
+    table = Table(out / f"status.{fmt}", fmt, _columns("status"), utc_twins={TIME_COL: "laptop_utc"})
     rows = sorted(col.sink.status_rows, key=lambda s: (s[0], s[1], s[2]))
     for key in sorted({(s[0], s[1]) for s in rows}):
         st = [s for s in rows if (s[0], s[1]) == key]

@@ -7,12 +7,10 @@ Captures and raw streams go through the decoder; a folder of tables written by
 
 from __future__ import annotations
 
-import csv
 from collections import defaultdict
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
 
 import numpy as np
 
@@ -20,6 +18,7 @@ from slipless.decoder import Decoder, NullSink, RunState, StreamInfo
 from slipless.errors import InputError
 from slipless.inputs import Source, classify, feed_all
 from slipless.protocol import wire
+from slipless.tables import read_decoded
 
 
 @dataclass
@@ -128,11 +127,11 @@ def load_runs(inputs: Sequence[Path], mirrors: Sequence[Path] = ()) -> list[RunD
 
 # ---- folders written by `slipless decode` --------------------------------------------
 def read_tables(folder: Path) -> list[RunData]:
-    samples = _find(folder, "samples")
-    if samples is None:
-        raise InputError(f"{folder}: is a folder without samples.csv or samples.parquet "
+    cols = read_decoded(folder, "samples", ("board", "run", "name", "board_time_s", "value",
+                                            "unit"))
+    if cols is None:
+        raise InputError(f"{folder}: is a folder without samples.csv or a samples/ Parquet dataset "
                          "(expected a capture file or a folder written by `slipless decode`)")
-    cols = _read(samples, ("board", "run", "name", "board_time_s", "value", "unit"))
     keys = list(zip(cols["board"].astype(int).tolist(), cols["run"].astype(int).tolist(),
                     cols["name"].tolist()))
     groups: dict[tuple[int, int, str], list[int]] = defaultdict(list)
@@ -145,9 +144,8 @@ def read_tables(folder: Path) -> list[RunData]:
         rd = out.setdefault((board, run), RunData(board, run))
         ix = np.asarray(idx)
         rd.streams[name] = _series(t_all[ix], v_all[ix], str(cols["unit"][ix[0]]))
-    events = _find(folder, "events")
-    if events is not None:
-        ev = _read(events, ("board", "run", "event", "board_time_s", "value"))
+    ev = read_decoded(folder, "events", ("board", "run", "event", "board_time_s", "value"))
+    if ev is not None:
         coil = ev["event"] == "coil"
         for key in out:
             sel = coil & (ev["board"].astype(int) == key[0]) & (ev["run"].astype(int) == key[1])
@@ -156,34 +154,3 @@ def read_tables(folder: Path) -> list[RunData]:
             out[key].coil_t_s = t[order]
             out[key].coil_state = ev["value"][sel].astype(int)[order]
     return [out[k] for k in sorted(out)]
-
-
-def _find(folder: Path, name: str) -> Path | None:
-    for ext in ("csv", "parquet"):
-        if (folder / f"{name}.{ext}").is_file():
-            return folder / f"{name}.{ext}"
-    return None
-
-
-def _read(path: Path, columns: Sequence[str]) -> dict[str, np.ndarray]:
-    try:
-        if path.suffix == ".parquet":
-            import pyarrow.parquet as pq
-
-            t = pq.read_table(path, columns=list(columns))
-            return {c: np.asarray(t.column(c).to_pylist(), dtype=object) for c in columns}
-        with path.open(newline="", encoding="utf-8") as f:
-            reader = csv.reader(f)
-            header = next(reader, [])
-            missing = [c for c in columns if c not in header]
-            if missing:
-                raise InputError(f"{path}: not a slipless table (no column {missing[0]!r})")
-            pos = [header.index(c) for c in columns]
-            rows: list[Any] = [[r[i] for i in pos] for r in reader if r]
-    except ImportError as exc:
-        raise InputError(f"{path}: reading Parquet needs pyarrow: pip install 'slipless[parquet]'") \
-            from exc
-    except (OSError, ValueError, KeyError) as exc:
-        raise InputError(f"{path}: cannot read ({exc})") from exc
-    arr = np.array(rows, dtype=object).reshape(-1, len(columns))
-    return {c: arr[:, i] for i, c in enumerate(columns)}

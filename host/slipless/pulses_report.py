@@ -1,12 +1,11 @@
 """Tables, a JSON summary and the console report of a pulse analysis.
 
-Tables are written column-wise as CSV (UTF-8, header row) or Parquet (types
-from the data), one file per table, like `slipless decode` writes its own.
+Tables are written column-wise as CSV (UTF-8, header row) or Parquet, one file
+per table, through the same writer as `slipless decode`'s (table_io).
 """
 
 from __future__ import annotations
 
-import csv
 import json
 import math
 from collections.abc import Sequence
@@ -21,7 +20,7 @@ from slipless.errors import InputError
 from slipless.pulses import Analysis
 from slipless.pulses_fit import MEANING, SE_KIND, TERMS
 from slipless.pulses_group import field_label, rotation_label
-from slipless.tables import FORMATS
+from slipless.table_io import kind_of, open_table, spec
 
 SE_WHY = ("OLS coefficients; HC2 heteroskedasticity-consistent standard errors (noise differs "
           "between rotation conditions and the within-pulse errors miss pulse-to-pulse scatter, "
@@ -30,24 +29,11 @@ SE_WHY = ("OLS coefficients; HC2 heteroskedasticity-consistent standard errors (
 
 
 def write_table(out: Path, name: str, fmt: str, cols: dict[str, Sequence[Any]]) -> Path:
-    if fmt not in FORMATS:
-        raise InputError(f"unknown table format {fmt!r}; choose one of {', '.join(FORMATS)}")
-    path = out / f"{name}.{fmt}"
-    lists = {k: (v.tolist() if isinstance(v, np.ndarray) else list(v)) for k, v in cols.items()}
-    if fmt == "parquet":
-        try:
-            import pyarrow as pa
-            import pyarrow.parquet as pq
-        except ImportError as exc:
-            raise InputError("--format parquet needs pyarrow: pip install 'slipless[parquet]'") \
-                from exc
-        pq.write_table(pa.table(lists), path)
-        return path
-    with path.open("w", newline="", encoding="utf-8") as f:
-        w = csv.writer(f)
-        w.writerow(lists)
-        w.writerows(zip(*lists.values()))
-    return path
+    """One table file; each column's kind comes from its values (NaN is written empty)."""
+    writer = open_table(out, spec(name, [(k, kind_of(v)) for k, v in cols.items()]), fmt)
+    writer.write(list(cols.values()))
+    writer.close()
+    return out / f"{name}.{fmt}"
 
 
 def _columns(rows: list[dict[str, Any]], names: Sequence[str]) -> dict[str, list[Any]]:

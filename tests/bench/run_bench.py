@@ -11,8 +11,10 @@ Prints one line per figure, then one JSON line with every figure:
   record_kBps, sink_kBps, record_host_drops   recorder over bumble's virtual link
   align_p99_ms, align_lsq_p99_ms, align_err_over_u, align_seconds_1M   clock fit (bench_align.py)
   fuzz_cases, fuzz_false_accepts, fuzz_intact_recovered   corrupted frames read (bench_fuzz.py)
+  decode_csv_MBps, decode_parquet_MBps, decode_parquet_rss_MB   decode into tables (bench_tables.py)
   demo_seconds          wall time of `slipless demo` (bench_demo.py)
   demo_sim_seconds      its firmware + radio + recorder stage, 180 s simulated (bench_demo.py)
+  run8h_*               seconds and peak RSS of each analysis command on an 8-hour run (bench_run8h.py)
 """
 
 from __future__ import annotations
@@ -227,6 +229,9 @@ def main() -> int:
         figures["decode_vs_construct"] = round(figures["decode_MBps"] / figures["construct_loop_MBps"], 1)
         figures["decode_peak_rss_MB"] = round(peak_rss(big), 1)
         figures["decode_peak_rss_small_MB"] = round(peak_rss(small), 1)
+        from bench_tables import table_figures  # decoding into CSV and Parquet tables
+
+        figures.update(table_figures(big, small))
     figures.update(board_figures())
     from bench_record import record_figures  # bumble is a test dependency, loaded on demand
 
@@ -240,6 +245,9 @@ def main() -> int:
     from bench_fuzz import run as fuzz_figures  # >= 10 million corrupted frames
 
     figures.update(fuzz_figures())
+    from bench_run8h import run8h_figures  # every analysis command on an 8-hour run (BENCH_HOURS)
+
+    figures.update(run8h_figures())
     for k, v in figures.items():
         print(f"{k:28s} {v}")
     print(json.dumps(figures, sort_keys=True))

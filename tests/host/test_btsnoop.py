@@ -482,8 +482,8 @@ def test_real_stack_log_decodes_like_our_capture(session: Session, tmp_path: Pat
     for name in ("samples", "events", "status"):
         rows = table(tmp_path / "snoop" / f"{name}.csv")
         assert rows == table(tmp_path / "cap" / f"{name}.csv") and rows, name
-    fates = table(tmp_path / "snoop" / "frames.csv", drop=("rx_wall_ns",))
-    assert fates == table(tmp_path / "cap" / "frames.csv", drop=("rx_wall_ns",))
+    fates = table(tmp_path / "snoop" / "frames.csv", drop=("rx_wall_ns", "rx_wall_utc"))
+    assert fates == table(tmp_path / "cap" / "frames.csv", drop=("rx_wall_ns", "rx_wall_utc"))
     assert {r[4] for r in fates} == {"received"}
     assert a.counters.commands == b.counters.commands == 2
 

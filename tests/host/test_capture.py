@@ -96,7 +96,7 @@ def test_decode_capture_matches_stream_and_keeps_times(tmp_path: Path) -> None:
     assert rows[0] == rows[1] and len(rows[0]) > 5000
     assert a.counters.commands == 1 and b.counters.commands == 0
     frames = (tmp_path / "ta" / "frames.csv").read_text().splitlines()
-    assert frames[0].endswith("origin,source,offset_B,rx_wall_ns")
+    assert frames[0].endswith("origin,source,offset_B,rx_wall_ns,rx_wall_utc")
     assert all(",radio,0," in line for line in frames[1:])
     timing = (tmp_path / "ta" / "timing.csv").read_text().splitlines()
     assert len(timing) > 50 and ",-1" not in timing[1]
