@@ -7,6 +7,16 @@ the descriptor, a tick reference, the list of sequence gaps and at most
 MAX_HELD frames that wait for a descriptor or a tick anchor; and, so frames
 that come late (resent, from a mirror) unwrap against a reference near them,
 one earlier reference per half hot span (a few thousand in a day's run).
+
+Speed: a chunk of at least BULK_BYTES (a file read) goes through
+FastDeframer.feed_block and _feed_block: the headers of all its frames are
+read with one numpy view, and each stretch of in-order SAMPLES frames of one
+run is accounted and unwrapped together (the tick rule applied as a running
+sum of 32-bit differences), its values cut out of the decoded bytes per
+stream by numpy. Every other frame, and every frame of a small chunk (a
+notification), takes the per-frame path (_frame). The bulk path calls the
+sink exactly as _frame would, skipping only the calls that a sink keeping
+NullSink's no-op methods ignores; tests hold both paths equal.
 """
 
 from __future__ import annotations
@@ -18,18 +28,32 @@ from typing import Any, Protocol
 
 import numpy as np
 
-from slipless.deframe import FastDeframer
+from slipless.deframe import FastDeframer, FrameBlock
 from slipless.frames import MalformedFrame, parse_body
 from slipless.protocol import wire
 
 MAX_HELD = 4096  # frames per run waiting for a descriptor or an anchor (~3 min at 20/s)
 _HEADER = struct.Struct(wire.HEADER)
 _SAMPLES_HEAD = struct.Struct(wire.HEADER + wire.SAMPLES_FIXED.lstrip("<"))
+_DESC_FIXED = struct.Struct(wire.DESCRIPTOR_FIXED)
 _TICK_LIMIT = 1 << 31  # the nearest-tick rule is exact within +-2**31 us
 _ANCHOR_KINDS = (wire.DESCRIPTOR, wire.STATUS, wire.SYNC, wire.END)  # carry 64-bit ticks
 _VK_SAMPLES = (wire.VERSION << 4) | wire.SAMPLES
 _DTYPES = {0x62: "<i1", 0x42: "<u1", 0x68: "<i2", 0x48: "<u2", 0x69: "<i4", 0x49: "<u4",
            0x66: "<f4"}
+BULK_BYTES = 16384  # chunks at least this long are decoded as a block (about 70 full frames)
+# Blocks are cut to this size, and samples handed over in pieces of at most EMIT_SAMPLES,
+# so no temporary passes about a megabyte: malloc then reuses its memory instead of
+# giving it back and taking fresh pages (page faults cost as much as the decoding).
+BLOCK_BYTES = 256 << 10
+EMIT_SAMPLES = 1 << 16
+_MIN_STRETCH = 4  # in-order SAMPLES frames taken together; shorter runs of them go frame by frame
+# The SAMPLES header as a numpy record (packed, 14 bytes), read for every frame of a block.
+_HEAD = np.dtype([("vk", "u1"), ("board", "<u2"), ("run", "<u2"), ("seq", "<u4"), ("stream", "u1"),
+                  ("tick32", "<u4")])
+_HEAD_COLS = np.arange(_HEAD.itemsize)
+_NO_STREAM = 255  # item size of a stream a run does not describe: no SAMPLES payload divides by it
+_TICK_SAFE = 1 << 62  # block ticks are int64 sums: references beyond this go frame by frame
 
 
 ORIGINS = ("radio", "resend", "mirror", "stream")
@@ -198,10 +222,17 @@ class Counters:
     commands: int = 0
 
 
-class _Batch:
-    """SAMPLES frames of one run and stream collected between flushes."""
+# A batch's frames as arrays: seq and first tick per frame, values per frame, the values
+# (None when the sink does not take them).
+_Piece = tuple[np.ndarray, np.ndarray, np.ndarray, "np.ndarray | None"]
 
-    __slots__ = ("run", "info", "itemsize", "seqs", "ticks", "payloads")
+
+class _Batch:
+    """SAMPLES frames of one run and stream collected between flushes: frames
+    decoded one by one in lists, stretches decoded as a block in pieces (the
+    lists become a piece before the next one is added, so order is kept)."""
+
+    __slots__ = ("run", "info", "itemsize", "seqs", "ticks", "payloads", "pieces")
 
     def __init__(self, run: RunState, info: StreamInfo) -> None:
         self.run = run
@@ -210,9 +241,44 @@ class _Batch:
         self.seqs: list[int] = []
         self.ticks: list[int] = []
         self.payloads: list[bytes] = []
+        self.pieces: list[_Piece] = []
+
+    def add(self, piece: _Piece) -> None:
+        self.close_lists(piece[3] is not None)
+        self.pieces.append(piece)
+
+    def close_lists(self, values: bool) -> None:
+        if not self.seqs:
+            return
+        counts = np.array(list(map(len, self.payloads)), dtype=np.int64) // self.itemsize
+        raw = np.frombuffer(b"".join(self.payloads), dtype=self.info.dtype) if values else None
+        self.pieces.append((np.asarray(self.seqs, dtype=np.int64),
+                            np.asarray(self.ticks, dtype=np.int64), counts, raw))
+        self.seqs, self.ticks, self.payloads = [], [], []
+
+
+class _Block:
+    """The arrays of the block being decoded that its pending stretches refer to."""
+
+    __slots__ = ("frames", "seq", "tick32", "tick_sum", "stream", "values_len", "u8", "misfits")
+
+    def __init__(self, frames: FrameBlock, seq: np.ndarray, tick32: np.ndarray,
+                 tick_sum: np.ndarray, stream: np.ndarray, values_len: np.ndarray,
+                 u8: np.ndarray) -> None:
+        self.frames = frames
+        self.seq = seq
+        self.tick32 = tick32
+        self.tick_sum = tick_sum  # running sum of the wrapped tick32 differences
+        self.stream = stream
+        self.values_len = values_len  # SAMPLES payload bytes after the fixed fields
+        self.u8 = u8  # frames.data as uint8
+        # per run: its item sizes, and the frames whose values do not fit them
+        self.misfits: dict[tuple[int, int], tuple[np.ndarray, list[int]]] = {}
 
 
 class Decoder:
+    _deframer_type = FastDeframer  # one per input and source (tests put the reference here)
+
     def __init__(self, sink: Sink | None = None, flush_bytes: int = 0) -> None:
         """flush_bytes: hand samples to the sink once this many bytes were fed
         (0: after every feed). A live reader fed one notification at a time
@@ -223,7 +289,13 @@ class Decoder:
         # A sink that keeps the NullSink's samples()/timing() wants neither: skip their work.
         self._wants_samples = getattr(type(self.sink), "samples", None) is not NullSink.samples
         self._wants_timing = getattr(type(self.sink), "timing", None) is not NullSink.timing
-        self.deframer = FastDeframer()
+        self._wants_frames = getattr(type(self.sink), "frame", None) is not NullSink.frame
+        self._pending: list[tuple[RunState, int, int, int]] = []  # stretches: run, first, end, shift
+        self._block: _Block | None = None
+        self._sizes: dict[tuple[int, int], np.ndarray] = {}  # per run: item size by stream id
+        self._batched: dict[tuple[int, int], set[int]] = {}  # per run: streams with a batch
+        self._described: dict[tuple[int, int], tuple[bytes, list[StreamInfo]]] = {}  # last entries
+        self.deframer = self._deframer_type()
         self._deframers: dict[int, FastDeframer] = {0: self.deframer}
         self.arrival = STREAM
         self.counters = Counters()
@@ -238,7 +310,7 @@ class Decoder:
         for d in self._deframers.values():
             d.close()
             self._done.append(d)
-        self.deframer = FastDeframer()
+        self.deframer = self._deframer_type()
         self._deframers = {0: self.deframer}
 
     # ---- input ------------------------------------------------------------
@@ -253,11 +325,23 @@ class Decoder:
         self.counters.bytes += len(data)
         deframer = self._deframers.get(arrival.source)
         if deframer is None:
-            deframer = self._deframers[arrival.source] = FastDeframer()
+            deframer = self._deframers[arrival.source] = self._deframer_type()
         self.deframer = deframer
         self.arrival = arrival
         base = sum(d.damaged for d in self._done) + sum(
             d.damaged for d in self._deframers.values() if d is not deframer)
+        if len(data) >= BULK_BYTES:
+            for at in range(0, len(data), BLOCK_BYTES):
+                self._feed_block(deframer.feed_block(data[at : at + BLOCK_BYTES]), base)
+        else:
+            self._feed_frames(deframer, data, base)
+        self._unflushed += len(data)
+        if self._unflushed >= self.flush_bytes:
+            self._unflushed = 0
+            self._flush()
+
+    def _feed_frames(self, deframer: FastDeframer, data: bytes, base: int) -> None:
+        arrival = self.arrival
         runs = self.runs
         unpack = _SAMPLES_HEAD.unpack_from
         frame_sink = self.sink.frame
@@ -274,7 +358,8 @@ class Decoder:
                 if (run is not None and seq == run.high_seq + 1 and run.damage_mark == damage
                         and run.described and seq - run.ref_seq < run.hot_span):
                     batch = batches.get((board, run_id, stream))
-                    if batch is not None and not (len(body) - _SAMPLES_HEAD.size) % batch.itemsize:
+                    if (batch is not None and batch.info is run.streams.get(stream)
+                            and not (len(body) - _SAMPLES_HEAD.size) % batch.itemsize):
                         run.high_seq = seq
                         run.received += 1
                         frame_sink(run, seq, wire.SAMPLES, "received", offset, origin, arrival)
@@ -289,10 +374,209 @@ class Decoder:
                         continue
             self._damage_now = damage
             self._frame(body, offset)
-        self._unflushed += len(data)
-        if self._unflushed >= self.flush_bytes:
-            self._unflushed = 0
-            self._flush()
+
+    # ---- a block of frames -----------------------------------------------------
+    def _feed_block(self, frames: FrameBlock, base: int) -> None:
+        if frames.first is not None:
+            body, offset, damaged = frames.first
+            self._damage_now = base + damaged
+            self._frame(body, offset)
+        n = len(frames)
+        if not n:
+            return
+        u8 = np.frombuffer(frames.data, dtype=np.uint8)
+        cols = frames.starts[:, None] + _HEAD_COLS
+        np.minimum(cols, len(u8) - 1, out=cols)  # a frame shorter than the record: not SAMPLES
+        head = u8[cols].view(_HEAD)[:, 0]
+        seq = head["seq"].astype(np.int64)
+        board, run_id, stream = head["board"], head["run"], head["stream"]
+        dmg = frames.damaged
+        samples = (head["vk"] == _VK_SAMPLES) & (frames.lens > _SAMPLES_HEAD.size)
+        # frame i continues the stretch of frame i - 1: same run, next seq, no damage between
+        cont = (samples[1:] & samples[:-1] & (board[1:] == board[:-1])
+                & (run_id[1:] == run_id[:-1]) & (seq[1:] == seq[:-1] + 1) & (dmg[1:] == dmg[:-1]))
+        tick32 = head["tick32"].astype(np.int64)
+        step = np.zeros(n, dtype=np.int64)
+        np.subtract(tick32[1:], tick32[:-1], out=step[1:])
+        step &= 0xFFFFFFFF
+        step[step >= 0x80000000] -= 0x100000000  # the tick rule between neighbours
+        self._block = _Block(frames, seq, tick32, np.cumsum(step), stream,
+                             frames.lens - _SAMPLES_HEAD.size, u8)
+        cuts = (np.flatnonzero(~cont) + 1).tolist()
+        runs = self.runs
+        for i, j in zip([0, *cuts], [*cuts, n]):
+            while i < j:
+                if j - i >= _MIN_STRETCH:
+                    run = runs.get((int(board[i]), int(run_id[i])))
+                    k = i if run is None else self._stretch(run, i, j, base + int(dmg[i]))
+                    if k > i:
+                        i = k
+                        continue
+                self._damage_now = base + int(dmg[i])
+                self._frame(frames.body(i), int(frames.offsets[i]))
+                i += 1
+        if self._pending:
+            self._commit()
+        self._block = None
+
+    def _stretch(self, run: RunState, i: int, j: int, damage: int) -> int:
+        """Frames i..j-1 are in-order SAMPLES of `run`: account and unwrap as many
+        as _frame would take its hot path for, from i; return where they end."""
+        blk = self._block
+        assert blk is not None
+        seq0 = int(blk.seq[i])
+        if not (run.described and seq0 == run.high_seq + 1 and run.damage_mark == damage
+                and seq0 - run.ref_seq < run.hot_span and -_TICK_SAFE < run.ref_tick < _TICK_SAFE):
+            return i
+        # a stream the run does not describe, or values that do not fill whole items: stop there
+        known = blk.misfits.get(run.key)
+        misfits = known[1] if known is not None and known[0] is self._sizes.get(run.key) else (
+            self._misfits(run))
+        at = bisect.bisect_left(misfits, i)
+        k = min(j, misfits[at]) if at < len(misfits) else j
+        if k == i:
+            return i
+        shift = wire.unwrap_tick(int(blk.tick32[i]), run.ref_tick) - int(blk.tick_sum[i])
+        last = seq0 + k - i - 1
+        arrival = self.arrival
+        if self._wants_frames or (arrival.mono_ns >= 0 and self._wants_timing):
+            self._stretch_calls(run, i, k, seq0, shift, damage)
+        else:
+            run.high_seq = last
+            run.received += k - i
+            self._keep_refs(run, i, seq0, last, shift)
+            run.ref_seq, run.ref_tick = last, shift + int(blk.tick_sum[k - 1])
+        self._pending.append((run, i, k, shift))
+        return k
+
+    def _stretch_calls(self, run: RunState, i: int, k: int, seq0: int, shift: int,
+                       damage: int) -> None:
+        """A stretch for a sink that takes frame() or timing(): _frame's steps, in order."""
+        blk = self._block
+        assert blk is not None
+        arrival = self.arrival
+        origin = arrival.origin
+        timed = arrival.mono_ns >= 0 and self._wants_timing
+        frame_sink = self.sink.frame
+        offsets = blk.frames.offsets[i:k].tolist()
+        ticks = (blk.tick_sum[i:k] + shift).tolist()
+        streams = blk.stream[i:k].tolist()
+        sizes = blk.values_len[i:k].tolist()
+        for q in range(k - i):
+            seq, tick = seq0 + q, ticks[q]
+            run.high_seq = seq
+            run.damage_mark = damage
+            run.received += 1
+            frame_sink(run, seq, wire.SAMPLES, "received", offsets[q], origin, arrival)
+            run.set_ref(seq, tick)
+            if timed:
+                info = run.streams[streams[q]]
+                self.sink.timing(run, seq, wire.SAMPLES,
+                                 tick + (sizes[q] // info.dtype.itemsize - 1) * info.period_us,
+                                 arrival)
+
+    def _keep_refs(self, run: RunState, i: int, seq0: int, last: int, shift: int) -> None:
+        """RunState.set_ref's kept references for seqs seq0..last (frames i..)."""
+        blk = self._block
+        assert blk is not None
+        kept = run.kept_refs
+        half = (run.hot_span + 1) // 2  # set_ref keeps one when (seq - kept) * 2 >= hot_span
+        seq = seq0 if not kept else max(seq0, kept[-1][0] + half)
+        while seq <= last:
+            kept.append((seq, shift + int(blk.tick_sum[i + seq - seq0])))
+            seq += half
+
+    def _misfits(self, run: RunState) -> list[int]:
+        """The block's frames that, as SAMPLES of `run`, _samples would not decode."""
+        blk = self._block
+        assert blk is not None
+        sizes = self._item_sizes(run)
+        known = blk.misfits.get(run.key)
+        if known is None or known[0] is not sizes:
+            known = blk.misfits[run.key] = (
+                sizes, np.flatnonzero(blk.values_len % sizes[blk.stream]).tolist())
+        return known[1]
+
+    def _item_sizes(self, run: RunState) -> np.ndarray:
+        sizes = self._sizes.get(run.key)
+        if sizes is None:
+            sizes = np.full(256, _NO_STREAM, dtype=np.int64)
+            for sid, info in run.streams.items():
+                sizes[sid] = info.dtype.itemsize
+            self._sizes[run.key] = sizes
+        return sizes
+
+    def _commit(self) -> None:
+        """Hand the pending stretches' frames to their batches, in frame order."""
+        blk = self._block
+        assert blk is not None
+        pending, self._pending = self._pending, []
+        groups: dict[int, list[tuple[RunState, int, int, int]]] = {}
+        for item in pending:
+            groups.setdefault(id(item[0]), []).append(item)
+        if any(not self._batched.get(g[0][0].key, set()) >= g[0][0].streams.keys()
+               for g in groups.values()):
+            for run, i, k, _ in pending:
+                self._new_batches(run, i, k)
+        n = len(blk.seq)
+        for group in groups.values():
+            run = group[0][0]
+            taken = np.zeros(n, dtype=bool)
+            shift = np.zeros(n, dtype=np.int64)  # the tick of a stretch's first frame, less its sum
+            for _, i, k, first in group:
+                taken[i:k] = True
+                shift[i:k] = first
+            idx = np.flatnonzero(taken)
+            ticks = blk.tick_sum[idx] + shift[idx]
+            streams = blk.stream[idx]
+            for sid in np.flatnonzero(np.bincount(streams, minlength=256)).tolist():
+                sel = streams == sid
+                self._add_piece(run, sid, idx[sel], ticks[sel])
+
+    def _new_batches(self, run: RunState, i: int, k: int) -> None:
+        """Batches for the streams of frames i..k-1 that have none, in the order
+        _samples would make them (their first frames' order)."""
+        blk = self._block
+        assert blk is not None
+        if self._batched.get(run.key, set()) >= run.streams.keys():
+            return
+        sids, first = np.unique(blk.stream[i:k], return_index=True)
+        for sid in sids[np.argsort(first)].tolist():
+            self._batch_for(run, run.streams[sid])
+
+    def _add_piece(self, run: RunState, sid: int, idx: np.ndarray, ticks: np.ndarray) -> None:
+        blk = self._block
+        assert blk is not None
+        batch = self._batch_for(run, run.streams[sid])
+        sizes = blk.values_len[idx]
+        raw = None
+        if self._wants_samples:
+            frames = blk.frames
+            first = frames.starts[idx] + _SAMPLES_HEAD.size
+            size = int(sizes[0])
+            if (sizes == size).all():  # rows of one length: one gather through a window view
+                rows = np.ndarray((len(blk.u8) - size + 1, size), np.uint8, frames.data,
+                                  strides=(1, 1))
+                raw = rows[first].view(batch.info.dtype).reshape(-1)
+            else:
+                raw = np.frombuffer(b"".join(map(frames.data.__getitem__, map(
+                    slice, first.tolist(), (first + sizes).tolist()))), dtype=batch.info.dtype)
+        batch.add((blk.seq[idx], ticks, sizes // batch.itemsize, raw))
+
+    def _batch_for(self, run: RunState, info: StreamInfo) -> _Batch:
+        """The batch of info's stream; a stream described anew first hands over
+        what it holds (those values keep the description they came with)."""
+        key = (run.board, run.run, info.stream)
+        batch = self._batches.get(key)
+        if batch is None:
+            batch = self._batches[key] = _Batch(run, info)
+            self._batched.setdefault(run.key, set()).add(info.stream)
+        elif batch.info is not info:
+            if batch.info != info:
+                self._emit(batch)
+                batch.itemsize = info.dtype.itemsize
+            batch.info = info
+        return batch
 
     def _time_samples(self, run: RunState, seq: int, tick: int, size: int,
                       info: StreamInfo) -> None:
@@ -421,10 +705,9 @@ class Decoder:
             run.set_ref(seq, tick)
         if self.arrival.mono_ns >= 0 and not forced:
             self._time_samples(run, seq, tick, len(body), info)
-        key = (run.board, run.run, stream)
-        batch = self._batches.get(key)
-        if batch is None:
-            batch = self._batches[key] = _Batch(run, info)
+        if self._pending:
+            self._commit()
+        batch = self._batch_for(run, info)
         batch.seqs.append(seq)
         batch.ticks.append(tick)
         batch.payloads.append(body[_SAMPLES_HEAD.size :])
@@ -434,14 +717,15 @@ class Decoder:
         if kind == wire.SAMPLES:
             self._samples(run, seq, body, forced)
             return
+        if kind == wire.DESCRIPTOR:
+            self._descriptor(run, seq, body)
+            return
         try:
             f = parse_body(kind, body[wire.HEADER_SIZE :])
         except MalformedFrame:
             self.counters.malformed += 1
             return
-        if kind == wire.DESCRIPTOR:
-            self._descriptor(run, seq, f)
-        elif kind == wire.EVENTS:
+        if kind == wire.EVENTS:
             ref = run.ref_for(seq)
             for ev in f["events"]:
                 tick = wire.unwrap_tick(ev["tick32"], run.ref_tick if ref is None else ref)
@@ -466,28 +750,53 @@ class Decoder:
         if self.arrival.mono_ns >= 0:
             self.sink.timing(run, seq, kind, tick, self.arrival)
 
-    def _descriptor(self, run: RunState, seq: int, f: dict[str, Any]) -> None:
-        if any(len(s["name"].encode()) > wire.MAX_TEXT or len(s["unit"].encode()) > wire.MAX_TEXT
-               for s in f["streams"]):
-            self.counters.malformed += 1
-            return
+    def _descriptor(self, run: RunState, seq: int, body: bytes) -> None:
+        fixed_end = wire.HEADER_SIZE + wire.DESCRIPTOR_FIXED_SIZE
+        entries = body[fixed_end:]
+        last = self._described.get(run.key)
+        if last is not None and last[0] == entries and len(body) >= fixed_end:
+            # the board repeats its descriptor: the entries were read (and checked) before
+            f = dict(zip(wire.DESCRIPTOR_FIELDS, _DESC_FIXED.unpack_from(body, wire.HEADER_SIZE)))
+        else:
+            try:
+                f = parse_body(wire.DESCRIPTOR, body[wire.HEADER_SIZE :])
+            except MalformedFrame:
+                self.counters.malformed += 1
+                return
+            if any(len(s["name"].encode()) > wire.MAX_TEXT or len(s["unit"].encode()) > wire.MAX_TEXT
+                   for s in f["streams"]):
+                self.counters.malformed += 1
+                return
+            last = None
         self._anchor(run, seq, f["tick"], wire.DESCRIPTOR)
         first = not run.described
         run.tick_hz = f["tick_hz"]
         run.fw = f"{f['fw_major']}.{f['fw_minor']}.{f['fw_patch']}"
         run.set_max_gap(f["max_gap_ms"])
         run.n_streams = f["n_streams"]
-        for s in f["streams"]:
-            if s["type"] not in _DTYPES:  # a sample type this release cannot unpack
-                if s["stream"] not in run.bad_stream_ids:
-                    run.bad_stream_ids.add(s["stream"])
-                    run.bad_streams += 1
-                continue
-            # scale and offset travel as float32: read them as the shortest
-            # decimal that rounds to that float32 (0.001, not 0.0010000000475).
-            s["scale"] = float(str(np.float32(s["scale"])))
-            s["offset"] = float(str(np.float32(s["offset"])))
-            run.streams[s["stream"]] = StreamInfo(**s)
+        if last is not None:
+            infos = last[1]
+        else:
+            infos = []
+            for s in f["streams"]:
+                if s["type"] not in _DTYPES:  # a sample type this release cannot unpack
+                    if s["stream"] not in run.bad_stream_ids:
+                        run.bad_stream_ids.add(s["stream"])
+                        run.bad_streams += 1
+                    continue
+                # scale and offset travel as float32: read them as the shortest
+                # decimal that rounds to that float32 (0.001, not 0.0010000000475).
+                s["scale"] = float(str(np.float32(s["scale"])))
+                s["offset"] = float(str(np.float32(s["offset"])))
+                infos.append(StreamInfo(**s))
+            self._described[run.key] = (entries, infos)
+        if last is None:
+            if any(run.streams.get(info.stream) != info for info in infos):
+                if self._pending:  # stretches decoded under the old description go first
+                    self._commit()
+                self._sizes.pop(run.key, None)
+            for info in infos:
+                run.streams[info.stream] = info
         run.described = True
         if first:
             self.sink.descriptor(run)
@@ -529,22 +838,46 @@ class Decoder:
     # ---- batches and closing ---------------------------------------------------
     def _flush(self) -> None:
         for batch in self._batches.values():
-            if not batch.seqs:
-                continue
-            info = batch.info
-            if not self._wants_samples:  # count them, nothing more
-                batch.run.samples += sum(map(len, batch.payloads)) // info.dtype.itemsize
-                batch.seqs, batch.ticks, batch.payloads = [], [], []
-                continue
-            raw = np.frombuffer(b"".join(batch.payloads), dtype=info.dtype)
-            counts = np.array(list(map(len, batch.payloads)), dtype=np.int64) // info.dtype.itemsize
-            seq = np.repeat(np.asarray(batch.seqs, dtype=np.int64), counts)
-            start = np.repeat(np.asarray(batch.ticks, dtype=np.int64), counts)
+            self._emit(batch)
+
+    def _emit(self, batch: _Batch) -> None:
+        """Hand a batch's samples to the sink, in pieces of about EMIT_SAMPLES."""
+        batch.close_lists(self._wants_samples)
+        pieces, batch.pieces = batch.pieces, []
+        if not self._wants_samples:  # count them, nothing more
+            batch.run.samples += sum(int(p[2].sum()) for p in pieces)
+            return
+        group: list[_Piece] = []
+        size = 0
+        for piece in pieces:  # small pieces together, large ones alone
+            assert piece[3] is not None
+            if group and size + piece[3].size > EMIT_SAMPLES // 2:
+                self._emit_group(batch, group)
+                group, size = [], 0
+            group.append(piece)
+            size += piece[3].size
+        if group:
+            self._emit_group(batch, group)
+
+    def _emit_group(self, batch: _Batch, pieces: list[_Piece]) -> None:
+        """One samples() call: one value, seq and tick per sample."""
+        info = batch.info
+        if len(pieces) == 1:
+            seqs, ticks, counts, raw = pieces[0]
+        else:
+            seqs, ticks, counts, raw = (np.concatenate(col) for col in zip(*pieces))
+        assert raw is not None
+        each = int(counts[0])
+        if (counts == each).all():  # frames of one length: a sample's place is its column
+            seq = np.repeat(seqs, each)
+            tick = (ticks[:, None] + np.arange(each, dtype=np.int64) * info.period_us).reshape(-1)
+        else:
+            seq = np.repeat(seqs, counts)
+            start = np.repeat(ticks, counts)
             first_index = np.repeat(np.cumsum(counts) - counts, counts)
             tick = start + (np.arange(raw.size, dtype=np.int64) - first_index) * info.period_us
-            batch.run.samples += int(raw.size)
-            self.sink.samples(batch.run, info, seq, tick, raw)
-            batch.seqs, batch.ticks, batch.payloads = [], [], []
+        batch.run.samples += int(raw.size)
+        self.sink.samples(batch.run, info, seq, tick, raw)
 
     def _close_accounting(self, run: RunState) -> None:
         for first, last, corrupt in run.gaps:

@@ -2,9 +2,9 @@
 
 Only bodies whose CRC already passed reach these parsers. SAMPLES bodies go
 through a precompiled struct on the hot path (see decoder.py), and so do the
-fixed-size kinds and EVENTS here (a construct parse costs tens of
-microseconds, about a notification's worth of radio time); tests check both
-against the declarative definitions.
+fixed-size kinds, EVENTS and DESCRIPTOR here (a construct parse costs tens of
+microseconds, about a notification's worth of radio time, and the board
+repeats its descriptor); tests check both against the declarative definitions.
 """
 
 from __future__ import annotations
@@ -98,6 +98,38 @@ _FIXED: dict[int, tuple[struct.Struct, tuple[str, ...]]] = {
     wire.ERROR: (struct.Struct(wire.ERROR_BODY), wire.ERROR_FIELDS),
 }
 _EVENT = struct.Struct(wire.EVENT_ENTRY)
+_DESC_FIXED = struct.Struct(wire.DESCRIPTOR_FIXED)
+_STREAM_ENTRY = struct.Struct(wire.STREAM_ENTRY)
+
+
+def _descriptor(payload: bytes) -> dict[str, Any] | None:
+    """DESCRIPTOR as the declarative layout reads it, or None where it would fail:
+    the fixed fields, then complete stream entries (UTF-8 texts) to the last byte."""
+    if len(payload) < _DESC_FIXED.size:
+        return None
+    f = dict(zip(wire.DESCRIPTOR_FIELDS, _DESC_FIXED.unpack_from(payload)))
+    streams = []
+    off, end = _DESC_FIXED.size, len(payload)
+    while off < end:
+        at = off + _STREAM_ENTRY.size
+        texts = []
+        for _ in range(2):
+            if at >= end:
+                return None
+            stop = at + 1 + payload[at]
+            if stop > end:
+                return None
+            try:
+                texts.append(payload[at + 1 : stop].decode("utf8"))
+            except UnicodeDecodeError:
+                return None
+            at = stop
+        entry = dict(zip(wire.STREAM_FIELDS, _STREAM_ENTRY.unpack_from(payload, off)))
+        entry["name"], entry["unit"] = texts
+        streams.append(entry)
+        off = at
+    f["streams"] = streams
+    return f
 
 
 def parse_body(kind: int, payload: bytes) -> dict[str, Any]:
@@ -107,6 +139,10 @@ def parse_body(kind: int, payload: bytes) -> dict[str, Any]:
         return dict(zip(fixed[1], fixed[0].unpack(payload)))
     if kind == wire.EVENTS and len(payload) % _EVENT.size == 0:
         return {"events": [dict(zip(wire.EVENT_FIELDS, e)) for e in _EVENT.iter_unpack(payload)]}
+    if kind == wire.DESCRIPTOR:
+        desc = _descriptor(payload)
+        if desc is not None:
+            return desc
     try:
         return _plain(BODIES[kind].parse(payload))  # type: ignore[no-any-return]
     except (ConstructError, UnicodeDecodeError) as exc:
