@@ -29,7 +29,6 @@ import subprocess
 import sys
 import tempfile
 import time
-import zlib
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).parent))
@@ -84,14 +83,6 @@ def run_command(argv: list[str], hwm_file: Path, limit_bytes: int,
     return dt, rss, ""
 
 
-def crc_seconds(path: Path) -> float:
-    t0 = time.perf_counter()
-    with path.open("rb") as f:
-        while chunk := f.read(1 << 20):
-            zlib.crc32(chunk)
-    return time.perf_counter() - t0
-
-
 def run8h_figures() -> dict[str, float]:
     hours = float(os.environ.get("BENCH_HOURS", "8"))
     limit = int(float(os.environ.get("BENCH_RUN8H_LIMIT_GB", "8")) * (1 << 30))
@@ -105,7 +96,9 @@ def run8h_figures() -> dict[str, float]:
               f"{w.samples:,} samples, {w.pulses:,} pulses, {len(w.outages)} disconnections, "
               f"{w.resent:,} resent, {w.lost} lost; written in {w.seconds:.1f} s", flush=True)
         figures["run8h_capture_MB"] = round(cap.stat().st_size / 1e6, 1)
-        figures["run8h_crc32_s"] = round(crc_seconds(cap), 3)
+        from run_bench import crc_file
+
+        figures["run8h_crc32_s"] = round(crc_file(cap), 3)
         for name, argv in commands(cap, Path(tmp)).items():
             dt, rss, why = run_command(argv, Path(tmp) / "hwm", limit, timeout_s)
             figures[f"run8h_{name}_s"] = round(dt, 2)

@@ -12,7 +12,6 @@ Run alone: .venv/bin/python tests/bench/bench_tables.py [MB]
 
 from __future__ import annotations
 
-import json
 import shutil
 import subprocess
 import sys
@@ -81,9 +80,9 @@ def main() -> int:
         write_capture(small, (size << 20) // 10)
         figures = {"capture_MB": round(big.stat().st_size / 1e6, 1)}
         figures.update(table_figures(big, small))
-    for k, v in figures.items():
-        print(f"{k:28s} {v}")
-    print(json.dumps(figures, sort_keys=True))
+    from run_bench import print_figures
+
+    print_figures(figures)
     return 0
 
 

@@ -248,10 +248,15 @@ def main() -> int:
     from bench_run8h import run8h_figures  # every analysis command on an 8-hour run (BENCH_HOURS)
 
     figures.update(run8h_figures())
+    print_figures(figures)
+    return 0
+
+
+def print_figures(figures: dict[str, float]) -> None:
+    """One line per figure, then every figure as one JSON line (what `make bench` ends with)."""
     for k, v in figures.items():
         print(f"{k:28s} {v}")
     print(json.dumps(figures, sort_keys=True))
-    return 0
 
 
 if __name__ == "__main__":
