@@ -321,15 +321,19 @@ class Decoder:
             d.close()
             self._done.append(d)
 
-    def feed(self, data: bytes, arrival: Arrival = STREAM) -> None:
+    def _take_input(self, data: bytes, arrival: Arrival) -> tuple[Any, int]:
+        """Count the bytes; -> the source's deframer and the damage other sources saw."""
         self.counters.bytes += len(data)
         deframer = self._deframers.get(arrival.source)
         if deframer is None:
             deframer = self._deframers[arrival.source] = self._deframer_type()
         self.deframer = deframer
         self.arrival = arrival
-        base = sum(d.damaged for d in self._done) + sum(
+        return deframer, sum(d.damaged for d in self._done) + sum(
             d.damaged for d in self._deframers.values() if d is not deframer)
+
+    def feed(self, data: bytes, arrival: Arrival = STREAM) -> None:
+        deframer, base = self._take_input(data, arrival)
         if len(data) >= BULK_BYTES:
             for at in range(0, len(data), BLOCK_BYTES):
                 self._feed_block(deframer.feed_block(data[at : at + BLOCK_BYTES]), base)

@@ -83,14 +83,7 @@ class RefDecoder(Decoder):
     _deframer_type = RefDeframer  # type: ignore[assignment]
 
     def feed(self, data: bytes, arrival: Arrival = STREAM) -> None:
-        self.counters.bytes += len(data)
-        deframer = self._deframers.get(arrival.source)
-        if deframer is None:
-            deframer = self._deframers[arrival.source] = self._deframer_type()
-        self.deframer = deframer
-        self.arrival = arrival
-        base = sum(d.damaged for d in self._done) + sum(
-            d.damaged for d in self._deframers.values() if d is not deframer)
+        deframer, base = self._take_input(data, arrival)
         for body, offset, damaged in deframer.feed(data):
             self._damage_now = base + damaged
             self._frame(body, offset)
