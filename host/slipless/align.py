@@ -18,12 +18,22 @@ from typing import Any
 import numpy as np
 
 from slipless.align_collect import Collected, Key, RunTimes, collect
-from slipless.align_grid import MAX_GRID_ROWS, column_name, gaps_after, grid_times, on_grid
+from slipless.align_grid import (
+    MAX_GRID_ROWS,
+    column_name,
+    gaps_after,
+    grid_rows,
+    grid_span,
+    on_grid,
+    samples_needed,
+)
 from slipless.align_tables import Table
 from slipless.clockfit import FitError
 from slipless.clockmodel import ClockModel, Exchanges, fit_clock
 from slipless.errors import InputError
 from slipless.protocol import wire
+from slipless.runstore import CHUNK_SAMPLES, ChannelStore
+from slipless.table_io import Coded, Const, TickSeconds
 from slipless.tables import SCHEMAS
 
 ANCHOR_MATCH_NS = 1_000_000_000  # inputs whose wall-mono anchors agree this well share a clock
@@ -31,6 +41,11 @@ TIME_COL = "laptop_utc_ns"
 _I64 = 1 << 63  # board ticks and host stamps are u64 on the wire; numpy holds int64
 _FLOAT = {"board_time_s", "raw", "value", "temp_C"}
 _STR = {"name", "unit", "event"}
+# Long runs are written a piece at a time, so memory does not grow with the run:
+SAMPLE_CHUNK = CHUNK_SAMPLES  # samples of one channel per write (runstore: about 30 MB of columns)
+GRID_CHUNK_ROWS = 1 << 20  # grid rows per write at most: 8 MB a column
+GRID_CHUNK_SAMPLES = CHUNK_SAMPLES  # ... and about this many samples of a channel behind them
+_CODED_BITS = 16  # raw types this narrow: each distinct value's text is made once
 
 
 @dataclass
@@ -73,7 +88,12 @@ class AlignResult:
 
 def align_files(inputs: Sequence[Path], out: Path, fmt: str, period_ns: int, window_s: float,
                 console: Any = None, mirrors: Sequence[Path] = ()) -> AlignResult:
-    col = collect(inputs, mirrors, console)
+    return align_collected(collect(inputs, mirrors, console), out, fmt, period_ns, window_s)
+
+
+def align_collected(col: Collected, out: Path, fmt: str, period_ns: int, window_s: float,
+                    console: Any = None) -> AlignResult:
+    """Fit every run's clock and write the aligned tables, the grid and clock.json."""
     out.mkdir(parents=True, exist_ok=True)
     extents = _extents(col)
     clocks = {key: fit_run(col, key, extents[key], window_s) for key in sorted(extents)}
@@ -95,16 +115,17 @@ def _extents(col: Collected) -> dict[Key, tuple[int, int]]:
         s[0], s[1] = min(s[0], lo), max(s[1], hi)
 
     for (b, r, _), ch in col.sink.channels.items():
-        ticks = [t for t in ch.tick if t.size]
-        if ticks:
-            add((b, r), min(int(t.min()) for t in ticks), max(int(t.max()) for t in ticks))
+        ticks = ch.tick_range()
+        if ticks is not None:
+            add((b, r), *ticks)
     for b, r, _, tick, _, _ in col.sink.events:
         add((b, r), tick, tick)
     for b, r, _, f in col.sink.status_rows:
         add((b, r), f["tick"], f["tick"])
     for key, times in col.sink.times.items():
-        for tick, *_ in times.timing:
-            add(key, tick, tick)
+        ticks = times.timing.tick_range()
+        if ticks is not None:
+            add(key, *ticks)
     return {k: (v[0], v[1]) for k, v in span.items()}
 
 
@@ -112,8 +133,8 @@ def fit_run(col: Collected, key: Key, extent: tuple[int, int], window_s: float) 
     run = col.decoder.runs.get(key)
     clock = RunClock(key, float(run.tick_hz) if run is not None and run.tick_hz else 1e6)
     times = col.sink.times.get(key, RunTimes())
-    rows = np.array([t for t in times.timing if t[1] >= 0 and 0 <= t[0] < _I64],
-                    dtype=np.int64).reshape(-1, 4)
+    rows = times.rows()  # rows beyond int64 are left out there: no tick or stamp of ours
+    rows = rows[(rows[:, 1] >= 0) & (rows[:, 0] >= 0)]
     if rows.shape[0] == 0:
         clock.notes.append("no laptop receive times (raw stream or mirror file only): "
                            "no laptop time can be given")
@@ -160,22 +181,53 @@ def _columns(name: str) -> list[tuple[str, str]]:
 
 def _utc(clock: RunClock | None, ticks: np.ndarray) -> Any:
     t = clock.utc_ns(ticks) if clock is not None else None
-    return t if t is not None else [None] * len(ticks)
+    return t if t is not None else Const(None)
 
 
 def _write_samples(col: Collected, clocks: dict[Key, RunClock], out: Path, fmt: str) -> None:
     table = Table(out / f"samples.{fmt}", fmt, _columns("samples"), utc_twins={TIME_COL: "laptop_utc"})
     for (b, r, s) in sorted(col.sink.channels):
         ch = col.sink.channels[(b, r, s)]
-        seq, tick, raw = ch.arrays()
-        info, n = ch.info, tick.size
+        info = ch.info
         clock = clocks.get((b, r))
         hz = clock.tick_hz if clock is not None else 1e6
-        raw_f = raw.astype(np.float64)
-        table.write([np.full(n, b), np.full(n, r), np.full(n, s), [info.name] * n, seq, tick,
-                     tick / hz, raw_f, raw_f * info.scale + info.offset, [info.unit] * n,
-                     _utc(clock, tick)])
+        coded = _code_tables(ch)
+        for lo, hi in ch.chunks(SAMPLE_CHUNK):
+            tick = ch.ticks(lo, hi)
+            table.write([Const(b), Const(r), Const(s), Const(info.name), ch.seqs(lo, hi), tick,
+                         _seconds(tick, hz), *_raw_and_value(ch, lo, hi, coded),
+                         Const(info.unit), _utc(clock, tick)])
     table.close()
+
+
+def _seconds(tick: np.ndarray, hz: float) -> Any:
+    """tick / hz; as TickSeconds (the same values) when hz is a whole number."""
+    return TickSeconds(tick, int(hz)) if hz > 0 and float(hz).is_integer() else tick / hz
+
+
+def _code_tables(ch: ChannelStore) -> tuple[np.ndarray, np.ndarray, int] | None:
+    """Every raw value a <= 16-bit stream can send as float, its scaled value, the lowest."""
+    info = ch.info
+    dt = info.dtype
+    if dt.kind not in "iu" or dt.itemsize * 8 > _CODED_BITS:
+        return None
+    lo = int(np.iinfo(dt).min)
+    raw = np.arange(lo, int(np.iinfo(dt).max) + 1, dtype=np.int64).astype(np.float64)
+    return raw, raw * info.scale + info.offset, lo
+
+
+def _raw_and_value(ch: ChannelStore, lo: int, hi: int,
+                   coded: tuple[np.ndarray, np.ndarray, int] | None) -> tuple[Any, Any]:
+    """The raw (as float) and value columns of samples lo..hi: raw * scale + offset."""
+    info = ch.info
+    raw = ch.raw_values(lo, hi)
+    if coded is None:
+        raw_f = raw.astype(np.float64)
+        return raw_f, raw_f * info.scale + info.offset
+    raws, values, low = coded
+    codes = raw.astype(np.int32) - low
+    return (Coded(codes, raws, ("raw_f", info.type)),
+            Coded(codes, values, ("value", info.type, info.scale, info.offset)))
 
 
 def _write_events(col: Collected, clocks: dict[Key, RunClock], out: Path, fmt: str) -> None:
@@ -230,44 +282,73 @@ def write_grid(col: Collected, clocks: dict[Key, RunClock], out: Path, fmt: str,
             f"board {b} run {r}" for b, r in left_out))
     series = _series(col, to_time)
     parts = [p for ps in series.values() for p in ps]
-    first = min((int(p[0][0]) for p in parts), default=0)
-    last = max((int(p[0][-1]) for p in parts), default=-1)
+    first = min((p.t_first for p in parts), default=0)
+    last = max((p.t_last for p in parts), default=-1)
     rows = max(0, (last - first) // period_ns + 1)
     if rows > MAX_GRID_ROWS:
         raise InputError(f"--grid {period_ns} ns gives {rows:,} rows (more than {MAX_GRID_ROWS:,}); "
                          "choose a coarser grid")
-    grid = grid_times(first, last, period_ns)
+    start, count = grid_span(first, last, period_ns)
     names = sorted(series)
-    columns: list[Any] = [grid]
-    for name in names:
-        col_v = np.full(grid.size, np.nan)
-        for part in series[name]:
-            vals = on_grid(grid, *part)
-            fill = np.isnan(col_v)
-            col_v[fill] = vals[fill]
-        columns.append(col_v)
     table = Table(out / f"grid.{fmt}", fmt, [(result.grid_clock, "int")] + [(n, "float") for n in names])
-    table.write(columns)
+    step = _grid_chunk_rows(parts, period_ns)
+    for lo in range(0, count, step):
+        grid = grid_rows(start, period_ns, lo, min(count, lo + step))
+        columns: list[Any] = [grid]
+        for name in names:
+            col_v = np.full(grid.size, np.nan)
+            for part in series[name]:
+                vals = part.on_grid(grid)
+                fill = np.isnan(col_v)
+                col_v[fill] = vals[fill]
+            columns.append(col_v)
+        table.write(columns)
     table.close()
-    result.grid_rows, result.grid_columns = int(grid.size), names
+    result.grid_rows, result.grid_columns = count, names
 
 
-Part = tuple[np.ndarray, np.ndarray, np.ndarray, float, bool]  # t, v, gap, hold_ns, state
+def _grid_chunk_rows(parts: Sequence[GridPart], period_ns: int) -> int:
+    """Grid rows per write: at most GRID_CHUNK_ROWS, and few enough that the
+    densest channel has about GRID_CHUNK_SAMPLES samples behind them."""
+    densest_ns = min((p.step_ns for p in parts), default=float(period_ns))
+    return max(1, min(GRID_CHUNK_ROWS, int(GRID_CHUNK_SAMPLES * densest_ns // period_ns)))
 
 
-def _series(col: Collected, to_time: dict[Key, Any]) -> dict[str, list[Part]]:
-    """Per column name, one part per run: times on the grid clock, values, gaps."""
-    series: dict[str, list[Part]] = {}
+class GridPart:
+    """One run's channel for the grid: its samples with times on the grid's
+    clock, looked up by time through the first sample of each segment."""
+
+    def __init__(self, ch: ChannelStore, to_time: Callable[[np.ndarray], Any]) -> None:
+        self.ch, self.info, self.to_time = ch, ch.info, to_time
+        _, first_tick, count = ch.frame_ends()
+        self.first_times = np.asarray(to_time(first_tick))
+        self.first_index = np.cumsum(count) - count
+        lo, hi = ch.tick_range() or (0, 0)
+        ends = np.asarray(to_time(np.array([lo, hi], dtype=np.int64)))
+        self.t_first, self.t_last = int(ends[0]), int(ends[1])
+        tick_ns = (self.t_last - self.t_first) / (hi - lo) if hi > lo else 1000.0
+        self.step_ns = max(self.info.period_us, 1) * tick_ns  # one sample period, roughly
+
+    def on_grid(self, grid: np.ndarray) -> np.ndarray:
+        """align_grid.on_grid over the samples around these grid times only."""
+        info = self.info
+        lo, hi = samples_needed(self.first_times, self.first_index, self.ch.n,
+                                int(grid[0]), int(grid[-1]))
+        tick = self.ch.ticks(lo, hi)
+        # Sample ticks step by period_us (the decoder's rule), so gaps are found in ticks.
+        return on_grid(grid, self.to_time(tick), self.ch.values(lo, hi),
+                       gaps_after(tick, info.period_us), info.period_us * 1e3, info.is_state)
+
+
+def _series(col: Collected, to_time: dict[Key, Any]) -> dict[str, list[GridPart]]:
+    """Per column name, one part per run."""
+    series: dict[str, list[GridPart]] = {}
     for (b, r, s) in sorted(col.sink.channels):
         if (b, r) not in to_time:
             continue
         ch = col.sink.channels[(b, r, s)]
-        _, tick, raw = ch.arrays()
-        if tick.size == 0:
+        if ch.n == 0:
             continue
-        info = ch.info
-        # Sample ticks step by period_us (the decoder's rule), so gaps are found in ticks.
-        part = (to_time[(b, r)](tick), raw.astype(np.float64) * info.scale + info.offset,
-                gaps_after(tick, info.period_us), info.period_us * 1e3, info.is_state)
-        series.setdefault(column_name(b, info.name, info.unit), []).append(part)
+        series.setdefault(column_name(b, ch.info.name, ch.info.unit), []).append(
+            GridPart(ch, to_time[(b, r)]))
     return series

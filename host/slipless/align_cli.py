@@ -48,11 +48,12 @@ def add_parser(sub: Any) -> None:
 
 
 def run_align(args: argparse.Namespace, console: Console) -> int:
-    from slipless.align import align_files
+    from slipless.run import open_run
 
     show = not (args.quiet or args.json)
-    result = align_files(args.inputs, args.out, args.format, args.grid, args.window / 1e9,
-                         console if show else None, args.mirror)
+    run = open_run(args.inputs, args.mirror, console=console if show else None)
+    result = run.align(args.out, args.grid, args.format, args.window / 1e9,
+                       console if show else None)
     if args.json:
         print(json.dumps(result.to_json(), indent=2))
         return 0

@@ -15,14 +15,40 @@ from __future__ import annotations
 import numpy as np
 
 GAP_PERIODS = 1.5  # a sample step longer than this many periods means samples are missing
-MAX_GRID_ROWS = 20_000_000  # one float64 column of this length is 160 MB
+# The grid is written in chunks, so its length costs disk and time, not memory; beyond
+# this (a day at 0.5 ms, some 15 GB of CSV) the period is most likely mistyped.
+MAX_GRID_ROWS = 200_000_000
+
+
+def grid_span(first_ns: int, last_ns: int, period_ns: int) -> tuple[int, int]:
+    """(first grid time, number of grid times) of grid_times()."""
+    start = -(-first_ns // period_ns) * period_ns
+    return start, max(0, (last_ns - start) // period_ns + 1)
 
 
 def grid_times(first_ns: int, last_ns: int, period_ns: int) -> np.ndarray:
     """Multiples of period_ns from first_ns to last_ns, both rounded inward."""
-    start = -(-first_ns // period_ns) * period_ns
-    n = (last_ns - start) // period_ns + 1
-    return start + np.arange(max(0, n), dtype=np.int64) * period_ns
+    start, n = grid_span(first_ns, last_ns, period_ns)
+    return start + np.arange(n, dtype=np.int64) * period_ns
+
+
+def grid_rows(start_ns: int, period_ns: int, lo: int, hi: int) -> np.ndarray:
+    """Rows lo..hi of the grid starting at start_ns: grid_times(...)[lo:hi]."""
+    return start_ns + np.arange(lo, hi, dtype=np.int64) * period_ns
+
+
+def samples_needed(first_times: np.ndarray, first_index: np.ndarray, n: int, g0: int,
+                   g1: int) -> tuple[int, int]:
+    """Index range of the samples on_grid() needs for grid times g0..g1 (a
+    chunk of the grid): from at or before the last sample at or before g0 to
+    the first sample after g1, or the ends. Found from the time and index of
+    each segment's first sample; sample times increase, so no other sample
+    can change a value in the chunk."""
+    s0 = int(np.searchsorted(first_times, g0, side="right")) - 1  # starts at or before g0
+    s1 = int(np.searchsorted(first_times, g1, side="right"))  # first to start after g1
+    lo = int(first_index[s0]) if s0 >= 0 else 0
+    hi = int(first_index[s1]) + 1 if s1 < first_times.size else n
+    return lo, hi
 
 
 def gaps_after(ticks: np.ndarray, period_ticks: float) -> np.ndarray:

@@ -78,3 +78,11 @@ def _pulses(p: argparse.ArgumentParser) -> None:
                      help="rates below this count as stopped (default 0.05)")
     p.add_argument("--no-plots", action="store_true", help="tables only")
     p.add_argument("--quiet", action="store_true", help="no report on the console")
+
+
+def pulses_options(argv: list[str]) -> argparse.Namespace:
+    """`slipless pulses` options parsed on their own (the report and the Python API take
+    the command's defaults from here): argv after the command name."""
+    parser = argparse.ArgumentParser(prog="slipless", add_help=False)
+    add_parsers(parser.add_subparsers(dest="command", required=True))
+    return parser.parse_args(["pulses", *argv])

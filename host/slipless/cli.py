@@ -19,9 +19,8 @@ from rich.table import Table
 from slipless import __version__
 from slipless.decoder import Decoder
 from slipless.errors import SliplessError
-from slipless.inputs import check_decoded, classify_all, feed_all
 from slipless.protocol import wire
-from slipless.tables import FORMATS, TableSink
+from slipless.tables import FORMATS
 
 EXIT_INPUT = 2
 
@@ -96,7 +95,7 @@ COMMANDS = {
     "record": ("slipless.record_cli", "run_record"),
     "pull": ("slipless.record_cli", "run_pull"),
     "predict": ("slipless.predict", "run_predict"),
-    "pulses": ("slipless.pulses", "run_pulses"),
+    "pulses": ("slipless.pulses_cli", "run_pulses"),
     "loss": ("slipless.loss_cli", "run_loss"),
     "report": ("slipless.report_cli", "run_report"),
     "budget": ("slipless.budget_cli", "run_budget"),
@@ -132,13 +131,10 @@ def decode_files(inputs: Sequence[Path], out: Path, fmt: str, console: Console |
     then the mirror filling what the radio lost. Returns the decoder for its
     counts.
     """
-    sources = classify_all(inputs, mirrors)
-    sink = TableSink(out, fmt)  # after every input was checked: fail before writing anything
-    dec = Decoder(sink)
-    feed_all(dec, sources, console)
-    sink.close(list(dec.runs.values()), dec.missing, dec.corrupt_guess)
-    check_decoded(dec, sources)
-    return dec
+    from slipless.run import open_run
+
+    return open_run(inputs, mirrors, tables=out, table_format=fmt, console=console,
+                    hold=False).decoder
 
 
 def cmd_decode(args: argparse.Namespace, console: Console) -> int:

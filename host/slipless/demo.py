@@ -36,8 +36,8 @@ import numpy as np
 from rich.console import Console
 from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 
-from slipless.cli import decode_files
 from slipless.errors import InputError
+from slipless.run import Run, open_run
 from slipless.sim.links import DEFAULT_LINK
 from slipless.sim.scenario import Scenario, ScenarioConfig, build
 
@@ -77,16 +77,17 @@ def run_demo(args: argparse.Namespace, console: Console) -> int:
         prediction.write_text(json.dumps({"inputs": asdict(sc.rig.rig_inputs()),
                                           "results": sc.rig.prediction()}, indent=1, default=float))
         stage(1, _scenario_lines(sc))
-        dec = decode_files([sc.capture], out / "tables", "csv", None, [sc.mirror])
-        run = dec.runs[(sc.rig.board, sc.run)]
+        # One decoding pass for the whole analysis: tables, loss, clocks, pulses, report.
+        decoded = open_run([sc.capture], [sc.mirror], tables=out / "tables", account_inputs=True)
+        run = decoded.decoder.runs[(sc.rig.board, sc.run)]
         stage(2, [f"decode: {run.received:,} frames ({sc.frames:,} built), {run.samples:,} "
                   f"samples, end of run {'seen' if run.end else 'not seen'} -> {out / 'tables'}/",
                   _coil_line(sc, out / "tables" / "events.csv")])
-        stage(3, _loss_lines(sc, out))
+        stage(3, _loss_lines(sc, out, decoded))
         from slipless.report import collect, write
 
-        data = collect([sc.capture], [sc.mirror], prediction)
-        stage(4, _clock_lines(sc, data, out))
+        data = collect(decoded, prediction)
+        stage(4, _clock_lines(sc, data, out, decoded))
         stage(5, _pulse_lines(sc, data, out))
         report = write(data, out / "report.html", "slipless demo run (simulated)",
                        f"simulated run, seed {args.seed}, {sc.rig.seconds:.0f} s"
@@ -164,15 +165,16 @@ def _coil_line(sc: Scenario, events: Path) -> str:
                else "it DOES NOT FOLLOW the rig's plan"))
 
 
-def _loss_lines(sc: Scenario, out: Path) -> list[str]:
+def _loss_lines(sc: Scenario, out: Path, decoded: Run) -> list[str]:
     from slipless.loss import analyse
-    from slipless.loss_collect import collect
     from slipless.loss_plot import plot
     from slipless.loss_report import document
 
     lines = []
     for label, mirrors in (("radio only", []), ("with the mirror", [sc.mirror])):
-        facts = collect([sc.capture], mirrors, None)
+        # radio only: the decoder's state as the mirror began (open_run's account_inputs)
+        facts = decoded.facts if mirrors else decoded.before_mirrors
+        assert facts is not None
         accounts = analyse(facts)
         doc = document(accounts, facts, None)
         name = "loss-radio" if not mirrors else "loss"
@@ -224,10 +226,8 @@ def _split_verdict(run: dict[str, Any], t: dict[str, int]) -> str:
     return "MISMATCH"
 
 
-def _clock_lines(sc: Scenario, data: Any, out: Path) -> list[str]:
-    from slipless.align import align_files
-
-    align_files([sc.capture], out / "aligned", "csv", 10_000_000, 600.0, None, [sc.mirror])
+def _clock_lines(sc: Scenario, data: Any, out: Path, decoded: Run) -> list[str]:
+    decoded.align(out / "aligned", grid=10_000_000)
     c = data.clocks[(sc.rig.board, sc.run)]
     m = c.model
     ticks = np.linspace(0, sc.rig.seconds * 1e6, 200).astype(np.int64)

@@ -26,6 +26,13 @@ CHUNK = 1 << 20
 PROGRESS_OVER = 4 << 20  # show a progress bar for inputs larger than this
 BTSNOOP_MAGIC = b"btsnoop\x00"
 TX_SOURCE_BASE = 1 << 16  # commands the laptop wrote get their own byte streams
+_passes = 0  # decoding passes over the inputs in this process (feed_all calls)
+
+
+def decode_passes() -> int:
+    """How many times this process has decoded its inputs (a test counts them:
+    every command decodes once)."""
+    return _passes
 
 
 @dataclass
@@ -147,6 +154,8 @@ def feed_all(dec: Decoder, sources: Sequence[Source], console: Console | None = 
     tap sees every piece of data after the decoder; on_source is told which
     source starts.
     """
+    global _passes
+    _passes += 1
     show = console is not None and sum(s.size for s in sources) > PROGRESS_OVER
     with Progress("[progress.description]{task.description}", BarColumn(), DownloadColumn(),
                   TimeRemainingColumn(), console=console, disable=not show) as bar:

@@ -121,19 +121,19 @@ def _requested(resends: list[Resend], board: int, run: int) -> list[Resend]:
 
 def _classify(f: RunFacts, expected: int, asked: list[Resend]) -> tuple[np.ndarray, int]:
     cls = np.full(expected, LOST, dtype=np.int8)
-    out_of_order = 0
-    for seq, c in f.first.items():
-        if seq >= expected:
-            continue
-        if c.origin == "mirror":
-            cls[seq] = MIRROR
-        elif c.origin == "resend" and any(
-                r.first <= seq <= r.last and (r.mono_ns < 0 or c.mono_ns < 0 or r.mono_ns <= c.mono_ns)
-                for r in asked):
-            cls[seq] = RESEND
-        else:
-            cls[seq] = RECEIVED
-            out_of_order += c.late
+    c = f.copies.columns()
+    held = c.seq < expected
+    seq, origin = c.seq[held], c.origin[held]
+    cls[seq] = RECEIVED
+    cls[seq[origin == f.copies.code("mirror")]] = MIRROR
+    resent = np.flatnonzero(origin == f.copies.code("resend"))
+    if resent.size and asked:
+        mono = c.mono_ns[held][resent]
+        for s, m in zip(seq[resent].tolist(), mono.tolist()):
+            if any(r.first <= s <= r.last and (r.mono_ns < 0 or m < 0 or r.mono_ns <= m)
+                   for r in asked):
+                cls[s] = RESEND
+    out_of_order = int(np.count_nonzero(c.late[held] & (cls[seq] == RECEIVED)))
     return cls, out_of_order
 
 
@@ -170,7 +170,7 @@ def _times(f: RunFacts, expected: int) -> np.ndarray:
 
 def _expected(f: RunFacts, notes: list[str], disc: list[str]) -> tuple[int, bool]:
     """Frames the run had (END's count, else up to the last seen) and whether END counts."""
-    seen = max(f.first, default=-1)
+    seen = f.copies.high()
     end = f.end
     if end is not None and end["frames"] - seen - 1 > MAX_UNSEEN_TAIL:
         disc.append(f"END says the run had {end['frames']} frames, far beyond the last seen "
@@ -179,11 +179,13 @@ def _expected(f: RunFacts, notes: list[str], disc: list[str]) -> tuple[int, bool
     if end is None:
         notes.append(f"end of run not seen: frames after seq {seen} cannot be counted")
         return seen + 1, False
-    after = sorted(s for s in f.first if s >= end["frames"])
-    if after:
-        what = (f"{len(after)} frame(s) came after END (seq {after[0]}-{after[-1]}; END says "
+    c = f.copies.columns()
+    beyond = c.seq >= end["frames"]
+    after = c.seq[beyond]
+    if after.size:
+        what = (f"{after.size} frame(s) came after END (seq {after[0]}-{after[-1]}; END says "
                 f"the run had {end['frames']})")
-        if all(f.kinds.get(s) in _REPLIES for s in after):
+        if np.isin(c.kind[beyond], _REPLIES).all():
             notes.append(what + ": replies to commands, counted in the run")
         else:
             disc.append(what)
@@ -232,8 +234,9 @@ def account_run(f: RunFacts, dec: Decoder, resends: list[Resend], downs: list[Li
     acc.gaps = find_gaps(acc, f, alloc, damaged, downs)
     # Only status and command replies, nothing missing, no END: the board idling
     # outside a started run (e.g. its STATUS frames between boot and START).
-    acc.idle = (not end_seen and not streams and bool(f.kinds) and terms["lost"] == 0
-                and terms["dropped_board"] == 0 and set(f.kinds.values()) <= set(_REPLIES))
+    kinds = f.copies.columns().kind
+    acc.idle = (not end_seen and not streams and bool(kinds.size) and terms["lost"] == 0
+                and terms["dropped_board"] == 0 and bool(np.isin(kinds, _REPLIES).all()))
     return acc
 
 
@@ -260,7 +263,7 @@ def analyse(facts: Facts, angle_stream: str | None = None, index_marker: int | N
 # ---- gaps ----------------------------------------------------------------------------
 def _live(f: RunFacts, seq: int) -> tuple[int, int, int] | None:
     """(mono_ns, wall_ns, source) of a frame that arrived live with laptop times."""
-    c = f.first.get(seq)
+    c = f.copies.get(seq)
     if c is None or c.mono_ns < 0 or c.origin == "mirror":
         return None
     return c.mono_ns, c.wall_ns, c.source

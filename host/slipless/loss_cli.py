@@ -59,10 +59,10 @@ def _check_options(args: argparse.Namespace) -> None:
 def run_loss(args: argparse.Namespace, console: Console) -> int:
     _check_options(args)
     from slipless.loss import analyse
-    from slipless.loss_collect import collect
     from slipless.loss_report import document, print_report
+    from slipless.run import open_run
 
-    facts = collect(args.inputs, args.mirror, args.angle_stream)
+    facts = open_run(args.inputs, args.mirror, angle_stream=args.angle_stream).facts
     accounts = analyse(facts, args.angle_stream, args.index_marker, args.angle_bins, args.gmin)
     doc = document(accounts, facts, args.max_loss)
     if args.json:

@@ -78,10 +78,7 @@ def _split(h: int, lost: int, dropped: int) -> tuple[int, int]:
 
 
 def _rows(f: RunFacts, stream: int, expected: int) -> np.ndarray:
-    parts = f.blocks.get(stream)
-    if not parts:
-        return np.zeros((0, 3), dtype=np.int64)
-    rows = np.concatenate(parts)
+    rows = f.block_rows(stream)
     rows = rows[rows[:, 0] < expected]
     return rows[np.lexsort((rows[:, 0], rows[:, 1]))]
 

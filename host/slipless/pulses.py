@@ -20,12 +20,11 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-from rich.console import Console
 from scipy import stats
 
 from slipless.errors import InputError
 from slipless.physics import rpm_to_rad_s
-from slipless.pulses_data import RunData, load_runs
+from slipless.pulses_data import RunData
 from slipless.pulses_fit import (
     Fit,
     Ratio,
@@ -138,10 +137,7 @@ def _conditions(used: list[PulseResult], groups: list[RotationGroup]) -> list[Co
                 continue
             y = np.array([m.response_v for m in members])
             mean, se, sd = mean_se(y)
-            waves = np.array([m.wave for m in members])
-            amps = np.array([m.wave_amps if m.wave_amps is not None else np.full(waves.shape[1],
-                                                                                  np.nan)
-                             for m in members])
+            waves, amps = _stacked_waves(members)
             with warnings.catch_warnings(), np.errstate(invalid="ignore", divide="ignore"):
                 warnings.simplefilter("ignore", RuntimeWarning)  # grid points no pulse reached
                 wmean = np.nanmean(waves, axis=0)
@@ -153,6 +149,20 @@ def _conditions(used: list[PulseResult], groups: list[RotationGroup]) -> list[Co
                 float(np.mean([m.current_a for m in members])), len(members), mean, se, sd,
                 float(np.median([m.se_v for m in members])), wmean, wse, amean))
     return out
+
+
+def _stacked_waves(members: list[PulseResult]) -> tuple[np.ndarray, np.ndarray]:
+    """Each member's signal and current waveform as rows (NaN: no current),
+    made here one condition at a time rather than kept for every pulse."""
+    waves = amps = np.zeros((0, 0))
+    for i, m in enumerate(members):
+        w, c = m.waves()
+        assert w is not None  # a used pulse has a response, so a waveform
+        if not i:
+            waves, amps = np.empty((len(members), w.size)), np.empty((len(members), w.size))
+        waves[i] = w
+        amps[i] = np.nan if c is None else c
+    return waves, amps
 
 
 def _compare(a: Analysis) -> None:
@@ -297,16 +307,3 @@ def settings_from_args(args: argparse.Namespace) -> tuple[Settings, Options]:
         raise InputError("--stopped-below must be positive")
     return st, Options(by=args.by, level=args.level, stopped_below=stopped,
                        slope_model=slope_model, field_t_per_a=t_per_a)
-
-
-def run_pulses(args: argparse.Namespace, console: Console) -> int:
-    from slipless.pulses_report import print_report, write_outputs
-
-    st, opt = settings_from_args(args)
-    runs = load_runs(args.inputs, args.mirror)
-    result = analyse(runs, st, opt)
-    paths = write_outputs(result, args.out, args.format, plots=not args.no_plots)
-    if not args.quiet:
-        print_report(result, console)
-        console.print(f"written to {args.out}/: {', '.join(p.name for p in paths)}")
-    return 0

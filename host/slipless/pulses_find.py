@@ -19,10 +19,12 @@ from dataclasses import dataclass
 import numpy as np
 
 from slipless.errors import InputError
+from slipless.pulses_data import Series, ranked
 
 RISE_TO_TAU = math.log(9.0)  # 10-90 % rise of 1 - exp(-t/tau) takes tau ln 9
 SETTLE_TAUS = 10.0  # 5 tau leaves 0.7 % of the step; twice that for the amplifier's settling
 ON_FRACTION, OFF_FRACTION = 0.5, 0.1  # hysteresis levels, fractions of the peak current
+PEAK_PERCENTILE = 99.5  # the peak current: a few spikes above it do not move the thresholds
 
 
 EDGE_GAP = 2.5  # sample periods: a longer hole at a switching edge means the edge was lost
@@ -65,69 +67,142 @@ def from_events(t_s: np.ndarray, state: np.ndarray) -> list[Pulse]:
 
 def from_current(t_s: np.ndarray, amps: np.ndarray, on_amps: float | None = None,
                  off_amps: float | None = None) -> list[Pulse]:
+    """pulses_in_current on plain arrays."""
+    return pulses_in_current(Series(t_s, amps), on_amps, off_amps)
+
+
+def pulses_in_current(cur: Series, on_amps: float | None = None,
+                      off_amps: float | None = None) -> list[Pulse]:
     """Threshold |I| with hysteresis; the sign of the current gives the polarity.
 
     A pulse starts when |I| rises above `on_amps` and ends when it falls below
     `off_amps`. The onset is moved back to the last sample below `off_amps`,
-    the end back to the last sample at 90 % of the pulse's own level.
+    the end back to the last sample at 90 % of the pulse's own level. The
+    series is read in chunks: only the pulses' own samples are kept at once.
     """
-    mag = np.abs(amps)
-    peak = float(np.percentile(mag, 99.5)) if mag.size else 0.0
+    peak = abs_percentile(cur, PEAK_PERCENTILE) if cur.n else 0.0
     on = ON_FRACTION * peak if on_amps is None else on_amps
     off = OFF_FRACTION * peak if off_amps is None else off_amps
     if not on > off >= 0 or peak <= 0:
         return []
-    above = mag > on
-    rises = np.flatnonzero(above[1:] & ~above[:-1]) + 1
-    below = np.flatnonzero(mag < off)
+    rises, low_start, low_end = _crossings(cur, on, off)
+    if not rises.size:
+        return []
+    period = float(np.median(np.diff(cur.times(0, min(cur.n, 1000)))))  # for the edge holes
     out, done = [], -1
     for u in rises.tolist():
         if u <= done:
             continue
-        k = int(np.searchsorted(below, u))
-        if k == 0 or k == below.size:
+        r_fall = int(np.searchsorted(low_end, u, side="right"))  # first stretch below off after u
+        r_start = int(np.searchsorted(low_start, u)) - 1  # last one begun before u
+        if r_start < 0 or r_fall == low_end.size:
             continue  # began before the record or never ended: no baselines
-        fall = int(below[k])
-        level = float(np.median(mag[u:fall]))
-        last = u + int(np.flatnonzero(mag[u:fall] >= 0.9 * level)[-1])
-        sign = int(np.sign(np.median(amps[u:fall])))
-        start = int(below[k - 1])
-        lost = _hole(t_s, start, u) or _hole(t_s, last, fall)
-        out.append(Pulse(float(t_s[start]), float(t_s[last]), sign, "current",
-                         "switching edge lost on the link" if lost else ""))
+        fall = max(int(low_start[r_fall]), u)
+        start = min(int(low_end[r_start]) - 1, u - 1)
+        amps = cur.values(u, fall)
+        mag = np.abs(amps)
+        level = float(np.median(mag))
+        last = u + int(np.flatnonzero(mag >= 0.9 * level)[-1])
+        sign = int(np.sign(np.median(amps)))
+        lost = _hole(cur, start, u, period) or _hole(cur, last, fall, period)
+        out.append(Pulse(float(cur.times(start, start + 1)[0]), float(cur.times(last, last + 1)[0]),
+                         sign, "current", "switching edge lost on the link" if lost else ""))
         done = fall
     return out
 
 
-def _hole(t_s: np.ndarray, i: int, j: int) -> bool:
+def _crossings(cur: Series, on: float, off: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Indices where |I| rises above `on` (from not above), and the stretches
+    [start, end) where |I| < off, found chunk by chunk."""
+    rises, starts, ends = [], [], []
+    was_above, was_below = True, False  # the first sample starts no rise
+    for lo, hi in cur.chunks():
+        mag = np.abs(cur.values(lo, hi))
+        above = np.r_[was_above, mag > on]
+        rises.append(np.flatnonzero(above[1:] & ~above[:-1]) + lo)
+        below = np.r_[was_below, mag < off].astype(np.int8)
+        step = np.diff(below)
+        starts.append(np.flatnonzero(step == 1) + lo)
+        ends.append(np.flatnonzero(step == -1) + lo)
+        was_above, was_below = bool(above[-1]), bool(below[-1])
+    if was_below:
+        ends.append(np.array([cur.n]))
+
+    def joined(parts: list[np.ndarray]) -> np.ndarray:
+        return np.concatenate(parts).astype(np.int64) if parts else np.zeros(0, np.int64)
+
+    return joined(rises), joined(starts), joined(ends)
+
+
+def abs_percentile(s: Series, q: float) -> float:
+    """np.percentile(np.abs(values), q), by counting for a store of small integers."""
+    lv = s.levels()
+    if lv is None:  # plain arrays (already whole), or a store of floats made whole once
+        return float(np.percentile(np.abs(s.values()), q))
+    mag = np.abs(lv[0])
+    order = np.argsort(mag, kind="stable")
+    return ranked_percentile(mag[order], lv[1][order], q)
+
+
+def ranked_percentile(sorted_vals: np.ndarray, counts: np.ndarray, q: float) -> float:
+    """np.percentile of the multiset `sorted_vals` repeated `counts` times, with
+    numpy's default ('linear', Hyndman & Fan type 7) arithmetic step for step."""
+    n = int(counts.sum())
+    vi = (n - 1) * np.true_divide(q, 100)
+    if vi >= n - 1:
+        return float(sorted_vals[-1])
+    prev = np.floor(vi)
+    a, b = ranked(sorted_vals, counts, [int(prev), int(prev) + 1])
+    gamma = vi - prev
+    diff = b - a
+    return float(b - diff * (1 - gamma) if gamma >= 0.5 else a + diff * gamma)
+
+
+def _hole(cur: Series, i: int, j: int, period: float) -> bool:
     """A hole in the samples between indices i and j (inclusive)?"""
-    period = float(np.median(np.diff(t_s[: min(t_s.size, 1000)])))
-    return bool(np.max(np.diff(t_s[i : j + 1]), initial=0.0) > EDGE_GAP * period)
+    return bool(np.max(np.diff(cur.times(i, j + 1)), initial=0.0) > EDGE_GAP * period)
 
 
 def merge(events: list[Pulse], current: list[Pulse]) -> list[Pulse]:
     """Event pulses checked against the current: where an event was lost on the
     link, the current says where the pulse ended, or that it happened at all."""
     out = []
-    for e in events:
-        inside = [c for c in current if e.onset_s < c.end_s and c.onset_s < e.end_s]
+    for e, inside in zip(events, _overlapping(events, current)):
         if len(inside) == 1 and not inside[0].note and \
                 inside[0].end_s < e.end_s - LOST_END * (e.end_s - e.onset_s):
             e = Pulse(e.onset_s, inside[0].end_s, e.polarity, "events+current")
         out.append(e)
-    for c in current:
-        if not any(e.onset_s < c.end_s and c.onset_s < e.end_s for e in events):
+    for c, hits in zip(current, _overlapping(current, events)):
+        if not hits:
             out.append(c)
     return sorted(out, key=lambda p: p.onset_s)
 
 
+def _overlapping(these: list[Pulse], others: list[Pulse]) -> list[list[Pulse]]:
+    """For each of `these`, the `others` it overlaps (a.onset < b.end and
+    b.onset < a.end), in their order. Pulses found either way follow one
+    another without overlapping, so the hits are one stretch found by bisection;
+    others out of order are searched one by one."""
+    on = np.array([p.onset_s for p in others])
+    end = np.array([p.end_s for p in others])
+    if not (np.all(on[1:] >= on[:-1]) and np.all(end[1:] >= end[:-1])):
+        return [[o for o in others if a.onset_s < o.end_s and o.onset_s < a.end_s] for a in these]
+    first = np.searchsorted(end, [a.onset_s for a in these], side="right")  # end > a.onset
+    stop = np.searchsorted(on, [a.end_s for a in these], side="left")  # onset < a.end
+    return [others[i:j] for i, j in zip(first.tolist(), stop.tolist())]
+
+
 def rise_time(t_s: np.ndarray, amps: np.ndarray, pulses: list[Pulse]) -> float | None:
+    """rise_of on plain arrays."""
+    return rise_of(Series(t_s, amps), pulses)
+
+
+def rise_of(cur: Series, pulses: list[Pulse]) -> float | None:
     """Median 10-90 % rise of |I| over the pulses (linear interpolation)."""
-    mag = np.abs(amps)
     rises = []
     for p in pulses:
-        i0, i1 = np.searchsorted(t_s, [p.onset_s, p.end_s])
-        seg_t, seg = t_s[i0:i1], mag[i0:i1]
+        i0, i1 = cur.span(p.onset_s, p.end_s)
+        seg_t, seg = cur.times(i0, i1), np.abs(cur.values(i0, i1))
         if seg.size < 8:
             continue
         level = float(np.median(seg[seg.size // 2 :]))

@@ -17,7 +17,15 @@ import numpy as np
 
 from slipless.errors import InputError
 from slipless.pulses_data import RunData, Series
-from slipless.pulses_find import Pulse, Windows, choose_windows, from_current, from_events, merge, rise_time
+from slipless.pulses_find import (
+    Pulse,
+    Windows,
+    choose_windows,
+    from_events,
+    merge,
+    pulses_in_current,
+    rise_of,
+)
 
 MIN_COVER = 0.5  # a window needs half its expected samples (the rest lost on the link)
 MIN_WINDOW = 4  # samples
@@ -62,12 +70,50 @@ class PulseResult:
     n_plateau: int
     found_by: str = ""
     note: str = ""
-    wave: np.ndarray | None = None
-    wave_amps: np.ndarray | None = None
+    shape: WaveShape | None = field(default=None, repr=False, compare=False)  # None: no waveform
 
     @property
     def used(self) -> bool:
         return not self.note
+
+    def waves(self) -> tuple[np.ndarray | None, np.ndarray | None]:
+        """(signal minus the baseline line, coil current) on the common grid."""
+        return (None, None) if self.shape is None else (self.shape.signal(), self.shape.current())
+
+    @property
+    def wave(self) -> np.ndarray | None:
+        return self.waves()[0]
+
+    @property
+    def wave_amps(self) -> np.ndarray | None:
+        return self.waves()[1]
+
+
+@dataclass(frozen=True, eq=False)
+class WaveShape:
+    """What a pulse's waveforms are made from, when asked: thousands of pulses'
+    waveforms kept at once would outweigh the run's own samples."""
+
+    sig: Series
+    cur: Series | None
+    onset_s: float
+    grid_s: np.ndarray  # shared by every pulse
+    sample_s: float
+    cur_s: float
+    before_v: float  # the baseline line: means and centres of the baselines
+    after_v: float
+    before_c: float
+    after_c: float
+
+    def signal(self) -> np.ndarray:
+        t = self.onset_s + self.grid_s
+        m_b, m_a, c_b, c_a = self.before_v, self.after_v, self.before_c, self.after_c
+        drift = m_b + (t - c_b) / (c_a - c_b) * (m_a - m_b)  # the baseline line
+        return _resample(self.sig, t, self.sample_s) - drift
+
+    def current(self) -> np.ndarray | None:
+        return None if self.cur is None else _resample(self.cur, self.onset_s + self.grid_s,
+                                                       self.cur_s)
 
 
 @dataclass
@@ -84,8 +130,8 @@ class RunPlan:
 
 def window_mean(s: Series, start: float, stop: float, sample_s: float) -> tuple[float, float, int]:
     """Mean, batch-means standard error and sample count; NaN if too few samples."""
-    i0, i1 = np.searchsorted(s.t_s, [start, stop])
-    x = s.v[i0:i1]
+    i0, i1 = s.span(start, stop)
+    x = s.values(i0, i1)
     expected = max((stop - start) / sample_s, 1.0)
     if x.size < max(MIN_WINDOW, MIN_COVER * expected):
         return math.nan, math.nan, int(x.size)
@@ -100,8 +146,7 @@ def window_mean(s: Series, start: float, stop: float, sample_s: float) -> tuple[
 
 
 def _period(s: Series) -> float:
-    d = np.diff(s.t_s)
-    return float(np.median(d)) if d.size else math.nan
+    return s.period()
 
 
 def _stream(rd: RunData, name: str, option: str) -> Series:
@@ -123,15 +168,15 @@ def plan_run(rd: RunData, st: Settings) -> RunPlan | None:
         raise InputError(f"{rd.label} has no coil events; use --pulses-from current")
     if source == "current":
         cur = _stream(rd, st.current, "--current")
-        pulses = from_current(cur.t_s, cur.v, st.on_amps, st.off_amps)
+        pulses = pulses_in_current(cur, st.on_amps, st.off_amps)
     else:
         pulses = from_events(rd.coil_t_s, rd.coil_state)
         if cur is not None and st.source == "auto":
-            pulses = merge(pulses, from_current(cur.t_s, cur.v, st.on_amps, st.off_amps))
+            pulses = merge(pulses, pulses_in_current(cur, st.on_amps, st.off_amps))
     if not pulses:
         return None
     sample_s = _period(sig)
-    rise = rise_time(cur.t_s, cur.v, pulses) if cur is not None else None
+    rise = rise_of(cur, pulses) if cur is not None else None
     windows = choose_windows(pulses, rise, sample_s, st.settle_s, st.baseline_s, st.plateau_s)
     return RunPlan(rd, pulses, windows, source, sample_s, _rotation_source(rd, st))
 
@@ -177,11 +222,7 @@ def reduce_run(plan: RunPlan, st: Settings, grid_s: np.ndarray) -> list[PulseRes
         r = PulseResult(rd.board, rd.run, k, p.onset_s, p.end_s, p.polarity, amps, rot, resp, se,
                         m_p, m_b, m_a, n_p, p.source, note)
         if math.isfinite(resp):
-            t = p.onset_s + grid_s
-            drift = m_b + (t - c_b) / (c_a - c_b) * (m_a - m_b)  # the baseline line
-            r.wave = _resample(sig, t, plan.sample_s) - drift
-            if cur is not None:
-                r.wave_amps = _resample(cur, t, cur_s)
+            r.shape = WaveShape(sig, cur, p.onset_s, grid_s, plan.sample_s, cur_s, m_b, m_a, c_b, c_a)
         out.append(r)
     return out
 
@@ -191,8 +232,8 @@ def _rotation(plan: RunPlan, st: Settings, span: tuple[float, float]) -> float:
     if plan.rotation_from == "metadata":
         return st.rotation_rate.get((rd.board, rd.run), st.rotation_rate.get(None, math.nan))
     s = rd.streams[plan.rotation_from]
-    i0, i1 = np.searchsorted(s.t_s, span)
-    return float(s.v[i0:i1].mean()) if i1 > i0 else math.nan
+    i0, i1 = s.span(*span)
+    return float(s.values(i0, i1).mean()) if i1 > i0 else math.nan
 
 
 def _steady(plan: RunPlan, st: Settings, before: tuple[float, float],
@@ -237,12 +278,19 @@ def _note(k: int, busy: list[tuple[float, float]], before: tuple[float, float],
 
 
 def _resample(s: Series, t: np.ndarray, sample_s: float) -> np.ndarray:
-    """Values at times t; NaN where the nearest sample is more than 1.5 periods away."""
-    if s.t_s.size == 0:
+    """Values at times t; NaN where the nearest sample is more than 1.5 periods away.
+
+    Only the samples around t are read: one more on each side gives np.interp
+    the same neighbours it finds in the whole series."""
+    n = s.n
+    if n == 0 or t.size == 0:
         return np.full(t.size, np.nan)
-    v = np.interp(t, s.t_s, s.v)
-    j = np.clip(np.searchsorted(s.t_s, t), 1, s.t_s.size - 1)
-    near = np.minimum(np.abs(s.t_s[j] - t), np.abs(s.t_s[j - 1] - t))
+    a = max(int(s.index(np.min(t))) - 1, 0)
+    b = min(int(s.index(np.max(t), "right")) + 1, n)
+    ts, vs = s.times(a, b), s.values(a, b)
+    v = np.interp(t, ts, vs)
+    j = np.clip(np.searchsorted(ts, t) + a, 1, n - 1) - a
+    near = np.minimum(np.abs(ts[j] - t), np.abs(ts[j - 1] - t))
     return np.where(near <= 1.5 * sample_s, v, np.nan)
 
 

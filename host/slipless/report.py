@@ -11,7 +11,6 @@ from __future__ import annotations
 
 import datetime as dt
 import tempfile
-from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -51,22 +50,22 @@ class ReportData:
     channels: tuple[str, str] = ("cap_amp", "coil_current")  # signal, current
 
 
-def collect(inputs: Sequence[Path], mirrors: Sequence[Path] = (),
-            prediction: Path | None = None) -> ReportData:
-    data = ReportData(list(inputs), list(mirrors))
-    _loss(data)
-    _clock(data)
-    _pulses(data, prediction)
+def collect(run: Any, prediction: Path | None = None) -> ReportData:
+    """Every section's analysis from one decoded Run (run.open_run)."""
+    data = ReportData([s.path for s in run.sources if s.kind != "mirror"],
+                      [s.path for s in run.sources if s.kind == "mirror"])
+    _loss(data, run)
+    _clock(data, run)
+    _pulses(data, run, prediction)
     return data
 
 
-def _loss(d: ReportData) -> None:
+def _loss(d: ReportData, run: Any) -> None:
     from slipless.loss import analyse
-    from slipless.loss_collect import collect as loss_collect
     from slipless.loss_plot import plot
     from slipless.loss_report import document
 
-    facts = loss_collect(d.inputs, d.mirrors, None)  # bad input raises here, before anything
+    facts = run.facts
     accounts = analyse(facts)
     d.loss_doc = document(accounts, facts, None)
     d.idle = {(r["board"], r["run"]) for r in d.loss_doc["runs"] if r["idle"]}
@@ -76,33 +75,33 @@ def _loss(d: ReportData) -> None:
         d.loss_png = path.read_bytes()
 
 
-def _clock(d: ReportData) -> None:
-    from slipless.align import _extents, collect, fit_run
+def _clock(d: ReportData, run: Any) -> None:
+    from slipless.align import _extents, fit_run
 
-    col = collect(d.inputs, d.mirrors, None)
+    col = run.collected
     for key, extent in sorted(_extents(col).items()):
         c = fit_run(col, key, extent, 600.0)
         d.clocks[key] = c
         times = col.sink.times.get(key)
         if c.model is None or times is None:
             continue
-        rows = np.array([t[:2] for t in times.timing if t[1] >= 0], dtype=np.int64).reshape(-1, 2)
+        rows = times.rows()
+        rows = rows[rows[:, 1] >= 0][:, :2]
         above = (rows[:, 1] - c.model.laptop_ns(rows[:, 0])) / 1e6
         d.residuals[key] = (rows[:, 0] / c.tick_hz, above)
     if not any(c.model is not None for c in d.clocks.values()):
         d.notes["clock"] = "no laptop receive times in the inputs: no clock model"
 
 
-def _pulses(d: ReportData, prediction: Path | None) -> None:
-    from slipless.cli import build_parser
+def _pulses(d: ReportData, run: Any, prediction: Path | None) -> None:
+    from slipless.analysis_args import pulses_options
     from slipless.pulses import analyse, settings_from_args
-    from slipless.pulses_data import load_runs
 
-    argv = ["pulses", *map(str, d.inputs), "--out", "unused"]
+    argv = [*map(str, d.inputs), "--out", "unused"]
     argv += ["--prediction", str(prediction)] if prediction is not None else []
-    st, opt = settings_from_args(build_parser().parse_args(argv))
+    st, opt = settings_from_args(pulses_options(argv))
     d.channels = (st.signal, st.current)
-    d.runs = load_runs(d.inputs, d.mirrors)
+    d.runs = run.pulse_runs()
     try:
         d.pulses = analyse(d.runs, st, opt)
     except InputError as exc:
@@ -227,8 +226,8 @@ def _traces(d: ReportData) -> str:
             s = rd.streams.get(name)
             if s is None:
                 continue
-            sel = (s.t_s >= lo) & (s.t_s <= hi)
-            axes[row, k].plot(s.t_s[sel], s.v[sel], lw=0.7, color=colour)
+            t, v = s.window(lo, hi)
+            axes[row, k].plot(t, v, lw=0.7, color=colour)
             axes[row, k].set_ylabel(f"{name} ({s.unit})", fontsize=8)
         axes[0, k].set_title(f"pulse {p.index}: field {'+' if p.polarity > 0 else '-'}, "
                              f"{p.rotation_rad_s:+.2f} rad/s", fontsize=9)

@@ -25,8 +25,9 @@ def add_parser(sub: Any) -> None:
 def run_report(args: argparse.Namespace, console: Console) -> int:
     _check_out(args.out)
     from slipless.report import collect, write
+    from slipless.run import open_run
 
-    data = collect(args.inputs, args.mirror, args.prediction)
+    data = collect(open_run(args.inputs, args.mirror), args.prediction)
     write(data, args.out, args.title)
     console.print(f"report written to {args.out}")
     return 0

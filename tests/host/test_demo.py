@@ -19,7 +19,11 @@ def test_demo_numbers(tmp_path: Path) -> None:
     console = Console(record=True, width=400)
     args = build_parser().parse_args(["demo", "--out", str(tmp_path), "--seconds", "60",
                                       "--seed", "1"])
+    from slipless.inputs import decode_passes
+
+    before = decode_passes()
     assert run_demo(args, console) == 0
+    assert decode_passes() - before == 1  # the whole analysis reads capture and mirror once
     text = console.export_text()
     # the board's firmware ran the run: its frames, its queue's drops, the radio's doings
     assert ("board firmware: run 2, 1,327 frames built; its send queue dropped 66 (counted in "

@@ -11,6 +11,7 @@ import pytest
 
 from slipless.cli import main
 from slipless.report import collect, write
+from slipless.run import open_run
 from slipless.sim.scenario import ScenarioConfig, build
 
 SECTIONS = ("summary", "completeness", "clock", "traces", "conditions", "safety")
@@ -20,7 +21,7 @@ SECTIONS = ("summary", "completeness", "clock", "traces", "conditions", "safety"
 def report(tmp_path_factory: pytest.TempPathFactory) -> Path:
     folder = tmp_path_factory.mktemp("report")
     sc = build(folder, ScenarioConfig(seed=2, seconds=60))
-    return write(collect([sc.capture], [sc.mirror]), folder / "report.html")
+    return write(collect(open_run([sc.capture], [sc.mirror])), folder / "report.html")
 
 
 def test_sections_and_images(report: Path) -> None:

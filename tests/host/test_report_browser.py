@@ -17,6 +17,7 @@ import numpy as np
 import pytest
 
 from slipless.report import collect, write
+from slipless.run import open_run
 from slipless.sim.scenario import ScenarioConfig, build
 
 CHROMIUM = Path("/usr/bin/chromium")
@@ -38,7 +39,7 @@ pytestmark = pytest.mark.skipif(
 def page(tmp_path_factory: pytest.TempPathFactory) -> Path:
     folder = tmp_path_factory.mktemp("browser")
     sc = build(folder, ScenarioConfig(seed=1, seconds=60))
-    return write(collect([sc.capture], [sc.mirror], None), folder / "report.html")
+    return write(collect(open_run([sc.capture], [sc.mirror])), folder / "report.html")
 
 
 def _chromium(page: Path, profile: Path, *extra: str) -> subprocess.CompletedProcess[str]:
