@@ -11,7 +11,8 @@ from __future__ import annotations
 
 from typing import Any
 
-__version__ = "0.3.0"
+from slipless.version import __version__
+
 __all__ = ["Run", "__version__", "open"]
 
 

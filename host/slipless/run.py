@@ -17,7 +17,6 @@ Run; the demo's whole analysis is one Run too.
 
 from __future__ import annotations
 
-import argparse
 import copy
 from collections.abc import Sequence
 from dataclasses import dataclass
@@ -26,14 +25,15 @@ from typing import Any
 
 import numpy as np
 
-from slipless.align_collect import AlignSink, Collected, _anchor
-from slipless.decoder import ORIGINS, Arrival, Decoder, NullSink, RunState, StreamInfo
+from slipless.align.collect import AlignSink, Collected, _anchor
+from slipless.decode.decoder import ORIGINS, Arrival, Decoder, NullSink, RunState, StreamInfo
+from slipless.decode.store import ChannelStore, Columns
+from slipless.decode.tables import TableSink
 from slipless.errors import InputError
-from slipless.inputs import TX_SOURCE_BASE, Source, check_decoded, classify_all, feed_all
-from slipless.loss_collect import CommandLog, Facts, LossSink, link_down
+from slipless.io.inputs import Source, check_decoded, classify_all, feed_all
+from slipless.io.pieces import TX_SOURCE_BASE
+from slipless.loss.collect import CommandLog, Facts, LossSink, link_down
 from slipless.protocol import wire
-from slipless.runstore import ChannelStore, Columns
-from slipless.tables import TableSink
 
 Key = tuple[int, int]
 FATES = ("received", "duplicate", "missing", "corrupt")
@@ -139,38 +139,38 @@ class Run:
     def loss(self, angle_stream: str | None = None, index_marker: int | None = None,
              bins: int = 12, gmin: int | None = None) -> list[Any]:
         """The frame and sample account of every run (loss.RunAccount)."""
-        from slipless.loss import GMIN, analyse
+        from slipless.loss.account import GMIN, analyse
 
         return analyse(self.facts, angle_stream, index_marker, bins, GMIN if gmin is None else gmin)
 
     def loss_document(self, max_loss: float | None = None, **options: Any) -> dict[str, Any]:
         """`slipless loss --json` as a dict."""
-        from slipless.loss_report import document
+        from slipless.loss.report import document
 
         return document(self.loss(**options), self.facts, max_loss)
 
     def align(self, out: Path | str, grid: str | int = "10ms", fmt: str = "csv",
-              window_s: float = 600.0, console: Any = None) -> Any:
+              window_s: float = 600.0) -> Any:
         """Fit every board clock and write the aligned tables and the grid (align.AlignResult)."""
-        from slipless.align import align_collected
-        from slipless.align_cli import period_ns
+        from slipless.align.aligned import align_collected
+        from slipless.align.period import parse_period
 
         try:
-            period = grid if isinstance(grid, int) else period_ns(grid)
-        except argparse.ArgumentTypeError as exc:
+            period = grid if isinstance(grid, int) else parse_period(grid)
+        except ValueError as exc:
             raise InputError(f"grid: {exc}") from exc
-        return align_collected(self.collected, Path(out), fmt, period, window_s, console)
+        return align_collected(self.collected, Path(out), fmt, period, window_s)
 
     def clocks(self, window_s: float = 600.0) -> dict[Key, Any]:
         """The clock model of every run (align.RunClock), nothing written."""
-        from slipless.align import _extents, fit_run
+        from slipless.align.aligned import _extents, fit_run
 
         col = self.collected
         return {key: fit_run(col, key, ext, window_s) for key, ext in sorted(_extents(col).items())}
 
     def pulse_runs(self) -> list[Any]:
         """Every run as named series in board time (pulses_data.RunData)."""
-        from slipless.pulses_data import runs_from_channels
+        from slipless.pulses.data import runs_from_channels
 
         coil: dict[Key, list[tuple[int, int]]] = {}
         for b, r, _, tick, code, value in self.sink.align.events:
@@ -183,7 +183,7 @@ class Run:
         """The pulse reduction (pulses.Analysis). settings/options as pulses.Settings and
         pulses.Options, or keyword arguments named as the command's options
         (signal="cap_amp", current="coil_current", prediction="prediction.json", ...)."""
-        from slipless.pulses import analyse
+        from slipless.pulses.analysis import analyse
 
         if settings is None or options is None:
             settings, options = pulse_settings(**cli_options)
@@ -192,7 +192,7 @@ class Run:
     def report(self, out: Path | str, prediction: Path | str | None = None,
                title: str = "slipless run report", subtitle: str = "") -> Path:
         """The self-contained HTML report; returns its path."""
-        from slipless.report import collect, write
+        from slipless.report.page import collect, write
 
         data = collect(self, None if prediction is None else Path(prediction))
         return Path(write(data, Path(out), title, subtitle))
@@ -288,8 +288,8 @@ def _join(parts: list[dict[str, np.ndarray]], names: Sequence[str]) -> dict[str,
 
 def pulse_settings(**options: Any) -> tuple[Any, Any]:
     """pulses.Settings and Options from keyword arguments named as the command's options."""
-    from slipless.analysis_args import pulses_options
-    from slipless.pulses import settings_from_args
+    from slipless.cli.analysis_args import pulses_options
+    from slipless.pulses.analysis import settings_from_args
 
     argv = ["unused", "--out", "unused"]
     for name, value in options.items():
@@ -310,10 +310,12 @@ def pulse_settings(**options: Any) -> tuple[Any, Any]:
 
 def open_run(inputs: Sequence[Path | str] | Path | str, mirrors: Sequence[Path | str] = (), *,
              tables: Path | str | None = None, table_format: str = "csv",
-             angle_stream: str | None = None, console: Any = None, hold: bool = True,
+             angle_stream: str | None = None, progress: Any = None, hold: bool = True,
              account_inputs: bool = False) -> Run:
     """Decode captures, btsnoop logs or raw streams (then the board's mirror
-    files) once. tables: also write `slipless decode`'s tables into this
+    files) once. progress: told of large inputs as they are read (an object
+    with task(name, total) -> advance(n) and close(), as the command line's
+    bar); tables: also write `slipless decode`'s tables into this
     folder in the same pass; hold=False keeps nothing but the decoder's
     counts (for writing tables in constant memory); account_inputs: also
     keep the loss facts of the inputs without the mirrors (Run.before_mirrors),
@@ -339,7 +341,7 @@ def open_run(inputs: Sequence[Path | str] | Path | str, mirrors: Sequence[Path |
         if account_inputs and src.kind == "mirror" and not before:
             before.append(_facts_so_far(dec, sink, sources[:i], commands))
 
-    feed_all(dec, sources, console, tap=tap if hold else None, on_source=on_source)
+    feed_all(dec, sources, progress, tap=tap if hold else None, on_source=on_source)
     if table_sink is not None:
         table_sink.close(list(dec.runs.values()), dec.missing, dec.corrupt_guess)
     check_decoded(dec, sources)

@@ -19,7 +19,7 @@ import time
 
 import numpy as np
 
-from slipless.clockmodel import fit_clock, least_squares_line
+from slipless.align.clockmodel import fit_clock, least_squares_line
 from slipless.sim.clocks import ClockSim, simulate_clock
 
 RUNS = 10

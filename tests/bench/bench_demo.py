@@ -29,7 +29,7 @@ def demo_figures() -> dict[str, float]:
         from io import StringIO
 
         from slipless.cli import main
-        from slipless.inputs import decode_passes
+        from slipless.io.inputs import decode_passes
 
         before = decode_passes()
         with redirect_stdout(StringIO()):

@@ -22,7 +22,7 @@ import time
 
 import numpy as np
 
-from slipless.deframe import FastDeframer
+from slipless.decode.deframe import FastDeframer
 from slipless.sim.board import SimConfig, simulate
 
 BATCH = 200_000  # frames per batch at most (memory: about 40 MB of stream)

@@ -17,13 +17,13 @@ from bumble import gatt
 from bumble.core import UUID
 from bumble.device import Device, Peer
 
-from slipless.capture import CaptureWriter
+from slipless.io.capture import CaptureWriter
 from slipless.protocol import wire
-from slipless.record import Recorder, RecordOptions
+from slipless.record.recorder import Recorder, RecordOptions
+from slipless.record.transports.bumble_central import BumbleCentral
 from slipless.sim.ble_board import virtual_pair
 from slipless.sim.board import SimConfig, simulate
 from slipless.sim.channel import notifications
-from slipless.transports.bumble_central import BumbleCentral
 
 SECONDS = 600.0  # simulated run length pushed through the link (long enough that
 # the transfer, well under a second, outlasts timer and scheduling noise)

@@ -22,8 +22,8 @@ from pathlib import Path
 
 def decode_tables(capture: Path, out: Path, fmt: str) -> float:
     """Seconds to decode `capture` into tables in `out`, 1 MB reads as `slipless decode` does."""
-    from slipless.decoder import Decoder
-    from slipless.tables import TableSink
+    from slipless.decode.decoder import Decoder
+    from slipless.decode.tables import TableSink
 
     t0 = time.perf_counter()
     sink = TableSink(out, fmt)

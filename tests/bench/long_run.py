@@ -41,8 +41,9 @@ import numpy as np
 from cobs.cobs import encode as cobs_encode
 from scipy.signal import lfilter
 
-from slipless import __version__, physics
-from slipless.capture import EVENT, RX, TX, CaptureWriter
+from slipless import __version__
+from slipless.io.capture import EVENT, RX, TX, CaptureWriter
+from slipless.model import physics
 from slipless.protocol import wire
 from slipless.sim import rig
 from slipless.sim.clocks import TICK_HZ, ClockSim

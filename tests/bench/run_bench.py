@@ -84,7 +84,7 @@ def write_capture(path: Path, target_bytes: int) -> int:
 
 
 def decode_file(path: Path) -> tuple[float, int]:
-    from slipless.decoder import Decoder, NullSink
+    from slipless.decode.decoder import Decoder, NullSink
 
     class Unpacked(NullSink):
         """Takes the unpacked sample arrays (a sink that ignores samples lets the

@@ -8,11 +8,12 @@ import hmac
 import json
 from typing import Any
 
+from collect_sink import CollectSink
 from test_board_run import CONFIG, setup
 
-from slipless import keys
-from slipless.decoder import CollectSink, Decoder
+from slipless.decode.decoder import Decoder
 from slipless.protocol import wire
+from slipless.record import keys
 
 # RFC 4231 section 4 (HMAC-SHA-256 rows of test cases 1, 2, 3, 4, 6, 7; case 5 is
 # truncated to 128 bits). The values agree with public test suites quoting the RFC and

@@ -8,11 +8,12 @@ import hashlib
 import json
 from typing import Any
 
+from collect_sink import CollectSink
 from test_board_run import CONFIG, setup
 
-from slipless import keys
-from slipless.decoder import CollectSink, Decoder
+from slipless.decode.decoder import Decoder
 from slipless.protocol import wire
+from slipless.record import keys
 from slipless.sim.ble_board import firmware_on_path
 
 KEY = bytes(range(32))  # test key (common practice: any 32 bytes)

@@ -5,7 +5,9 @@ from __future__ import annotations
 
 import json
 
-from slipless.decoder import CollectSink, Decoder, collect
+from collect_sink import CollectSink, collect
+
+from slipless.decode.decoder import Decoder
 from slipless.protocol import wire
 
 CONFIG = {

@@ -15,7 +15,8 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
-from slipless.decoder import collect
+from collect_sink import collect
+
 from slipless.protocol import wire
 
 HERE = Path(__file__).resolve().parent

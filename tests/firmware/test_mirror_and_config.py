@@ -4,7 +4,8 @@ from __future__ import annotations
 
 import json
 
-from slipless.decoder import collect
+from collect_sink import collect
+
 from slipless.protocol import wire
 
 CONFIG = {

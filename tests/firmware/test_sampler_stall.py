@@ -13,7 +13,8 @@ from __future__ import annotations
 
 import json
 
-from slipless.decoder import collect
+from collect_sink import collect
+
 from slipless.protocol import wire
 
 STALL_US_PER_4K = 30_000  # common practice: tens of ms per 4 KB on internal flash

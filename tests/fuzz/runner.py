@@ -27,8 +27,8 @@ with atheris.instrument_imports(include=["slipless", "targets", "wire", "config"
     import commands  # noqa: F401
     import config  # noqa: F401
 
-    import slipless.btsnoop  # noqa: F401
-    import slipless.inputs  # noqa: F401
+    import slipless.io.btsnoop  # noqa: F401
+    import slipless.io.inputs  # noqa: F401
 
 
 def seeds(name: str) -> list[bytes]:
@@ -46,7 +46,7 @@ def seeds(name: str) -> list[bytes]:
         return [(targets.REPO / "firmware" / "config.example.json").read_bytes(), b"{}"]
     if name == "commands":
         enc = wire.Encoder(0xFFFF, 0)
-        from slipless import keys
+        from slipless.record import keys
 
         return [enc.frame(enc.start(1, 5, "x")), enc.frame(enc.ping(2, 7)),
                 enc.frame(keys.Signer(targets.KEY).command(enc, wire.CMD_STOP, 3))]

@@ -19,10 +19,10 @@ from typing import Any
 
 REPO = Path(__file__).resolve().parents[2]
 
-from slipless.capture import CaptureError, CaptureReader  # noqa: E402
-from slipless.decoder import Arrival, Decoder, NullSink  # noqa: E402
-from slipless.deframe import FastDeframer  # noqa: E402
+from slipless.decode.decoder import Arrival, Decoder, NullSink  # noqa: E402
+from slipless.decode.deframe import FastDeframer  # noqa: E402
 from slipless.errors import InputError  # noqa: E402
+from slipless.io.capture import CaptureError, CaptureReader  # noqa: E402
 from slipless.protocol import wire  # noqa: E402
 
 _TMP = Path(tempfile.mkdtemp(prefix="slipless-fuzz-"))
@@ -70,7 +70,7 @@ def _file(name: str, data: bytes) -> Path:
 
 
 def check_capture(data: bytes) -> None:
-    from slipless.capture import MAGIC
+    from slipless.io.capture import MAGIC
 
     for blob in (data, MAGIC + data):
         with _file("f.slcap", blob).open("rb") as f:
@@ -89,14 +89,14 @@ def check_capture_records(data: bytes) -> None:
 
 
 def capture_header() -> bytes:
-    from slipless import capture
+    from slipless.io import capture
 
     meta = json.dumps({"slipless": "fuzz"}).encode()
     return capture._FILE_HEAD.pack(capture.MAGIC, capture.VERSION, len(meta), zlib.crc32(meta)) + meta
 
 
 def _consume(path: Path, mirror: bool = False) -> None:
-    from slipless import inputs
+    from slipless.io import inputs
 
     try:
         src = inputs.classify(path, mirror=mirror)
@@ -112,7 +112,7 @@ def _consume(path: Path, mirror: bool = False) -> None:
 
 
 def check_btsnoop(data: bytes) -> None:
-    from slipless.btsnoop import H4
+    from slipless.io.btsnoop import H4
 
     head = b"btsnoop\x00" + struct.pack(">II", 1, H4)
     _consume(_file("b.log", head + data))

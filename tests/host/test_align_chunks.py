@@ -15,14 +15,15 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from slipless import align, runstore
-from slipless.align import GridPart
-from slipless.align_collect import AlignSink, TimingRows
-from slipless.align_grid import gaps_after, grid_rows, grid_times, on_grid
+from slipless.align import aligned as align
+from slipless.align.aligned import GridPart
+from slipless.align.collect import AlignSink, TimingRows
+from slipless.align.grid import gaps_after, grid_rows, grid_times, on_grid
 from slipless.cli import main
-from slipless.decoder import RunState, StreamInfo
+from slipless.decode import store as runstore
+from slipless.decode.decoder import RunState, StreamInfo
+from slipless.decode.store import ChannelStore
 from slipless.protocol import wire
-from slipless.runstore import ChannelStore
 from slipless.sim.clock_capture import SimBoard, write_clock_capture
 from slipless.sim.clocks import ClockSim
 

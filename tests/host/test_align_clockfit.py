@@ -20,7 +20,7 @@ from hypothesis import strategies as st
 from scipy.optimize import linprog
 from scipy.spatial import ConvexHull
 
-from slipless.clockfit import (
+from slipless.align.clockfit import (
     FitError,
     envelope_line,
     feasible_band,
@@ -31,7 +31,7 @@ from slipless.clockfit import (
     piecewise,
     window_vertices,
 )
-from slipless.clockmodel import Exchanges, fit_clock
+from slipless.align.clockmodel import Exchanges, fit_clock
 
 
 def test_onwire_rfc5905_worked_exchange() -> None:

@@ -9,7 +9,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from slipless.align_grid import column_name, gaps_after, grid_times, on_grid
+from slipless.align.grid import column_name, gaps_after, grid_times, on_grid
 
 T = np.array([0, 10, 20, 30, 60, 70], dtype=np.int64)  # ns; 30 -> 60 skips two samples
 V = np.array([0.0, 1.0, 3.0, 2.0, 5.0, 7.0])

@@ -18,7 +18,7 @@ from dataclasses import dataclass
 import numpy as np
 import pytest
 
-from slipless.clockmodel import ClockModel, Exchanges, fit_clock
+from slipless.align.clockmodel import ClockModel, Exchanges, fit_clock
 
 TICK_HZ = 1_000_000
 SKEW_PPM = 23.0  # board fast

@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from slipless.clockmodel import fit_clock, least_squares_line
+from slipless.align.clockmodel import fit_clock, least_squares_line
 from slipless.sim.clocks import ClockSim, simulate_clock
 
 STEP_TICKS = 10_000  # check the mapping every 10 ms of board time

@@ -11,11 +11,11 @@ import asyncio
 import pytest
 
 from slipless.protocol import wire
+from slipless.record.transports.bumble_central import BumbleCentral
 from slipless.sim import virtual_time
 from slipless.sim.ble_board import BluetoothModule, virtual_pair
 from slipless.sim.links import LINKS, AirLink
 from slipless.sim.rotating_link import LinkPlan, RotatingLink
-from slipless.transports.bumble_central import BumbleCentral
 
 
 class AclCounter:

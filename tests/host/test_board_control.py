@@ -16,8 +16,10 @@ from typing import Any
 
 import pytest
 
-from slipless import cli, control_cli, keys
+from slipless import cli
+from slipless.cli import board as control_cli
 from slipless.protocol import wire
+from slipless.record import keys
 from slipless.sim import ble_board, virtual_time
 
 KEY_HEX = bytes(range(32)).hex()  # test key (common practice: any 32 bytes)
@@ -125,8 +127,8 @@ def test_find_nothing_in_range(monkeypatch, capsys) -> None:
 def flashed(tmp: Path, given: dict[str, Any], monkeypatch: pytest.MonkeyPatch) -> tuple[Path, dict]:
     """The user's config file, and the /config.json `slipless flash` makes of it (its own
     build_plan, mpy-cross left out: only the config item is used)."""
-    from slipless import flash
-    from slipless.boardfiles import firmware_dir
+    from slipless.board import flash
+    from slipless.board.files import firmware_dir
 
     user = tmp / "rotor.json"
     user.write_text(json.dumps(given, indent=2))
@@ -274,7 +276,9 @@ def test_bad_key_and_config_files(home, capsys) -> None:
 
 def test_info_vector_fields() -> None:
     """The decoder reads vector 27's INFO frames back into the fields it was built from."""
-    from slipless.decoder import CollectSink, Decoder
+    from collect_sink import CollectSink
+
+    from slipless.decode.decoder import Decoder
 
     vectors = Path(__file__).resolve().parents[2] / "protocol" / "vectors"
     case = json.loads((vectors / "27-info.json").read_text())

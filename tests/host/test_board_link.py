@@ -19,9 +19,10 @@ from typing import Any
 
 import pytest
 
-from slipless import cli, control
+from slipless import cli
 from slipless.protocol import wire
-from slipless.transports import LinkError, scan
+from slipless.record import control
+from slipless.record.transports import LinkError, scan
 
 
 # ---- bleak (stand-in module) ----------------------------------------------------------
@@ -166,7 +167,7 @@ def test_no_answer_and_a_dropped_link() -> None:
 
 
 def test_old_counter_is_sent_once_more_above_the_floor() -> None:
-    from slipless import keys
+    from slipless.record import keys
 
     seen: list[int] = []
 

@@ -23,11 +23,11 @@ from bumble.gatt import Characteristic, CharacteristicValue, Service
 from bumble.gatt_client import CharacteristicProxy
 from bumble.snoop import BtSnooper
 
-from slipless import btsnoop, capture
-from slipless.btsnoop import BtsnoopReport, btsnoop_pieces
 from slipless.cli import decode_files
 from slipless.errors import InputError
-from slipless.inputs import TX_SOURCE_BASE
+from slipless.io import btsnoop, capture
+from slipless.io.btsnoop import BtsnoopReport, btsnoop_pieces
+from slipless.io.pieces import TX_SOURCE_BASE
 from slipless.protocol import wire
 from slipless.sim.ble_board import virtual_pair
 from slipless.sim.board import SimConfig, simulate

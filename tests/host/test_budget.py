@@ -19,10 +19,10 @@ from typing import Any
 import pytest
 from cobs.cobs import encode as cobs_encode  # the `cobs` package (PyPI): a reference encoder
 
-from slipless import budget
-from slipless.boardfiles import firmware_dir, protocol_dir
+from slipless.board import budget
+from slipless.board.files import firmware_dir, protocol_dir
+from slipless.board.flash import load_board_config_module, load_profile
 from slipless.cli import main
-from slipless.flash import load_board_config_module, load_profile
 from slipless.protocol import wire
 
 FW = firmware_dir()
@@ -186,7 +186,7 @@ def test_board_mtu_ceiling_and_ping_cadence_are_the_project_values() -> None:
     _firmware_on_path()
     import link as fw_link
 
-    from slipless.record import RecordOptions
+    from slipless.record.recorder import RecordOptions
 
     assert budget.BOARD_MAX_MTU == fw_link.MAX_PAYLOAD + budget.ATT_NOTIFY_HEADER
     assert budget.PING_EVERY_S == RecordOptions().ping_every_s

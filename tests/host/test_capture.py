@@ -11,8 +11,8 @@ from pathlib import Path
 
 import pytest
 
-from slipless import capture
 from slipless.cli import decode_files
+from slipless.io import capture
 from slipless.protocol import wire
 from slipless.sim.board import SimConfig, simulate
 from slipless.sim.channel import notifications

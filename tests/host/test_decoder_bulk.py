@@ -19,10 +19,10 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from slipless import decoder as decoder_mod
-from slipless import frames
-from slipless.decoder import STREAM, Arrival, Decoder, NullSink, RunState, StreamInfo
-from slipless.deframe import FastDeframer
+from slipless.decode import decoder as decoder_mod
+from slipless.decode import frames
+from slipless.decode.decoder import STREAM, Arrival, Decoder, NullSink, RunState, StreamInfo
+from slipless.decode.deframe import FastDeframer
 from slipless.protocol import wire
 from slipless.sim.board import SimConfig, simulate
 from slipless.sim.channel import ChannelConfig, ChannelLog, transmit

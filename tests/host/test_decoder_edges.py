@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
-from slipless.decoder import CollectSink, Decoder, collect
+from collect_sink import CollectSink, collect
+
+from slipless.decode.decoder import Decoder
 from slipless.protocol import wire
 
 H = ord("h")

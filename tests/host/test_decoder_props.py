@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import random
 
+from collect_sink import collect
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from slipless.decoder import collect
 from slipless.sim.board import SimConfig, simulate
 from slipless.sim.channel import ChannelConfig, ChannelLog, transmit
 

@@ -12,14 +12,14 @@ import pytest
 from rich.console import Console
 
 from slipless.cli import build_parser
-from slipless.demo import run_demo
+from slipless.cli.demo import run_demo
 
 
 def test_demo_numbers(tmp_path: Path) -> None:
     console = Console(record=True, width=400)
     args = build_parser().parse_args(["demo", "--out", str(tmp_path), "--seconds", "60",
                                       "--seed", "1"])
-    from slipless.inputs import decode_passes
+    from slipless.io.inputs import decode_passes
 
     before = decode_passes()
     assert run_demo(args, console) == 0
@@ -46,7 +46,7 @@ def test_demo_numbers(tmp_path: Path) -> None:
     assert re.search(r"d \(field x rotation \(induction\)\): .* inside the 95% interval", text)
     assert re.search(r"b \(field only \(artifact\)\): .* inside the 95% interval", text)
     # the capture is the recorder's own, over bumble at the negotiated MTU, from the firmware
-    from slipless import capture
+    from slipless.io import capture
     from slipless.sim.ble_board import FIRMWARE
 
     with (tmp_path / "run.slcap").open("rb") as f:
@@ -65,8 +65,8 @@ def test_demo_numbers(tmp_path: Path) -> None:
 
 
 def test_demo_is_deterministic_and_its_account_is_the_radios_truth(tmp_path: Path) -> None:
-    from slipless.loss import analyse
-    from slipless.loss_collect import collect
+    from slipless.loss.account import analyse
+    from slipless.loss.collect import collect
     from slipless.sim.scenario import ScenarioConfig, build
 
     sc = build(tmp_path, ScenarioConfig(seed=3, seconds=60))
@@ -151,7 +151,7 @@ def test_slow_link_demo_numbers(slow_demo: tuple[str, Path]) -> None:
     ]:
         assert line in text, line
     assert re.search(r"d \(field x rotation \(induction\)\): .* inside the 95% interval", text)
-    from slipless import capture
+    from slipless.io import capture
 
     with (out / "run.slcap").open("rb") as f:
         links = [json.loads(r.payload) for r in capture.CaptureReader(f) if r.type == capture.EVENT]

@@ -17,8 +17,8 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from test_loss_accounting import plans
 
-from slipless import capture
 from slipless.cli import main
+from slipless.io import capture
 from slipless.protocol import wire
 from slipless.sim.lossy import PERIOD_US, Plan, _samples_layout, frames, write
 

@@ -14,8 +14,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from slipless import capture
 from slipless.cli import main
+from slipless.io import capture
 from slipless.sim.clock_capture import SimBoard, SimCapture, write_clock_capture
 from slipless.sim.clocks import ClockSim
 

@@ -15,8 +15,8 @@ import random
 
 import pytest
 
-from slipless import capture
 from slipless.cli import main
+from slipless.io import capture
 from slipless.protocol import wire
 
 BOARD, RUN = 7, 2
@@ -140,7 +140,7 @@ def test_a_frame_that_comes_hours_late_keeps_its_tick() -> None:
     """Regression: a frame obtained long after its neighbours (resent, or read
     from the mirror, which is merged after the capture) was unwrapped against
     the newest reference, whole wraps away, and its time called uncertain."""
-    from slipless.decoder import collect
+    from collect_sink import collect
 
     fr, first_tick, _ = _build(set())
     fr = fr[:800]  # about 2.2 hours, no END

@@ -14,8 +14,8 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from test_loss_accounting import plans
 
-from slipless.loss import analyse
-from slipless.loss_collect import collect
+from slipless.loss.account import analyse
+from slipless.loss.collect import collect
 from slipless.sim.lossy import Plan, frames, truth, write
 
 
@@ -49,7 +49,7 @@ def test_mirror_cut_by_power_loss(plan: Plan, where: float) -> None:
 
 def _records(path: Path) -> list[tuple[int, int, int, bytes]]:
     """(offset, end, type, payload) of every record, from the uncut file."""
-    from slipless.capture import CaptureReader
+    from slipless.io.capture import CaptureReader
 
     with path.open("rb") as f:
         recs = [(r.offset, r.type, r.payload) for r in CaptureReader(f)]
@@ -64,7 +64,7 @@ def test_capture_cut_with_the_mirror_whole(plan: Plan, where: float) -> None:
     """The laptop's capture cut at any point (its disk filled, the laptop died);
     the board's mirror holds every frame: nothing is lost, and each frame is
     counted where it survived (live, by resend, or from the mirror)."""
-    from slipless import capture
+    from slipless.io import capture
     from slipless.protocol import wire
 
     plan = dataclasses.replace(plan, mirror=set(range(plan.n_frames)))

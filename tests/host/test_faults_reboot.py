@@ -9,8 +9,8 @@ from __future__ import annotations
 import random
 from pathlib import Path
 
-from slipless.loss import analyse
-from slipless.loss_collect import collect
+from slipless.loss.account import analyse
+from slipless.loss.collect import collect
 from slipless.protocol import wire
 from slipless.sim.ble_board import firmware_on_path
 

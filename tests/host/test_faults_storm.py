@@ -20,8 +20,8 @@ from pathlib import Path
 
 import pytest
 
-from slipless import capture
 from slipless.cli import main
+from slipless.io import capture
 from slipless.protocol import wire
 from slipless.sim.radioless import RadiolessRun
 

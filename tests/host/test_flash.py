@@ -17,7 +17,7 @@ from pathlib import Path
 import pytest
 from rich.console import Console
 
-from slipless import flash
+from slipless.board import flash
 from slipless.cli import main
 
 REPO = Path(__file__).resolve().parents[2]
@@ -80,7 +80,7 @@ def test_flash_without_port_is_one_line(tmp_path, capsys):
 
 def test_failed_flash_keeps_the_key_the_board_holds(tmp_path, capsys, slipless_home):
     """No board answered: the laptop's key for that board must be the one it had."""
-    from slipless import keys
+    from slipless.record import keys
 
     held = keys.save_key(1, "ab" * 32, slipless_home / "keys")
     rc = main(["flash", "--port", str(tmp_path / "no-such-port"), "--config",
@@ -170,8 +170,10 @@ def test_unopenable_port_is_one_line(tmp_path, capsys):
 
 def test_cautions_shown_once_per_laptop(slipless_home):
     first, second = Console(record=True, width=200), Console(record=True, width=200)
-    flash.show_cautions_once(first)
-    flash.show_cautions_once(second)
+    from slipless.cli.flash import show_cautions_once
+
+    show_cautions_once(first)
+    show_cautions_once(second)
     text = first.export_text()
     for words in ("balance", "guard", "limit its speed", "stop it fully", "fuse", "contain",
                   "flyback diode or a TVS", "H-bridge", "heating", "coil off at boot",
@@ -234,7 +236,7 @@ def flashed(tmp_path_factory):
     board = PtyBoard(tmp)
     try:
         cfg = config_for(tmp, "pico-w")
-        from slipless import keys
+        from slipless.record import keys
 
         keys.save_key(1, "cd" * 32, tmp / "home" / "keys")  # a key from an earlier flash
         env = dict(os.environ, SLIPLESS_HOME=str(tmp / "home"))

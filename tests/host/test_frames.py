@@ -7,7 +7,7 @@ import struct
 import numpy as np
 import pytest
 
-from slipless import frames
+from slipless.decode import frames
 from slipless.protocol import wire
 
 

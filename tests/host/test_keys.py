@@ -9,10 +9,10 @@ import struct
 
 import pytest
 
-from slipless import keys
 from slipless.cli import main
 from slipless.errors import InputError
 from slipless.protocol import wire
+from slipless.record import keys
 
 
 def test_key_file_private_and_checked(tmp_path) -> None:

@@ -6,9 +6,9 @@ from __future__ import annotations
 import asyncio
 from typing import Any
 
+from slipless.record.transports import LINK_INFO_KEYS
+from slipless.record.transports.bumble_central import BumbleCentral
 from slipless.sim import ble_board, virtual_time
-from slipless.transports import LINK_INFO_KEYS
-from slipless.transports.bumble_central import BumbleCentral
 
 CONFIG = {
     "board_id": 31, "name": "rotor-info",

@@ -14,8 +14,8 @@ from pathlib import Path
 
 import pytest
 
-from slipless import capture
 from slipless.cli import main
+from slipless.io import capture
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "bench"))
 

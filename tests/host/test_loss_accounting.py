@@ -16,8 +16,8 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from slipless.loss import RunAccount, analyse
-from slipless.loss_collect import collect
+from slipless.loss.account import RunAccount, analyse
+from slipless.loss.collect import collect
 from slipless.protocol import wire
 from slipless.sim.lossy import BOARD, RUN, Plan, frames, truth, write
 

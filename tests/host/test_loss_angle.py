@@ -9,10 +9,10 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from slipless.decoder import RunState
-from slipless.loss import LOST, analyse
-from slipless.loss_angle import histogram, rotor_angle
-from slipless.loss_collect import RunFacts, collect
+from slipless.decode.decoder import RunState
+from slipless.loss.account import LOST, analyse
+from slipless.loss.angle import histogram, rotor_angle
+from slipless.loss.collect import RunFacts, collect
 from slipless.sim import rig
 from slipless.sim.shadow import send_ticks, shadow
 
@@ -97,8 +97,8 @@ def test_the_gyros_zero_is_taken_from_standstill(still_first: bool,
     Omega = 7.2921150e-5 rad/s, the WGS 84 defining constant, NIMA TR8350.2) while the
     turntable stands still; integrating that shifts the angle by tens of
     degrees over minutes. The standstill readings fix the zero."""
-    from slipless import loss_angle
-    from slipless.physics import EARTH_RATE_RAD_S, earth_vertical_rate
+    from slipless.loss import angle as loss_angle
+    from slipless.model.physics import EARTH_RATE_RAD_S, earth_vertical_rate
 
     assert EARTH_RATE_RAD_S == pytest.approx(7.292115e-5, rel=1e-6)
     rate_hz, bias = 200, 0.003

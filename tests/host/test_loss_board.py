@@ -8,10 +8,11 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from slipless import capture
-from slipless.decoder import collect as decode_chunks
-from slipless.loss import DROPPED, RECEIVED, RESEND, analyse
-from slipless.loss_collect import collect
+from collect_sink import collect as decode_chunks
+
+from slipless.io import capture
+from slipless.loss.account import DROPPED, RECEIVED, RESEND, analyse
+from slipless.loss.collect import collect
 from slipless.protocol import wire
 from slipless.sim.radioless import RadiolessRun
 

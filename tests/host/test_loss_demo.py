@@ -18,8 +18,8 @@ import numpy as np
 import pytest
 
 from slipless.cli import main
-from slipless.loss import RECEIVED, analyse
-from slipless.loss_collect import collect
+from slipless.loss.account import RECEIVED, analyse
+from slipless.loss.collect import collect
 from slipless.sim import rig
 from slipless.sim.channel import ChannelConfig, ChannelLog, notifications, transmit
 from slipless.sim.shadow import shadow

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from slipless.loss_drops import allocate
+from slipless.loss.drops import allocate
 
 
 def mask(n: int, *seqs: int) -> np.ndarray:

@@ -11,8 +11,8 @@ from typing import Any
 import numpy as np
 import pytest
 
-from slipless.decoder import Arrival, Decoder, NullSink, RunState, StreamInfo
-from slipless.loss_collect import LossSink, RateStream, RunFacts
+from slipless.decode.decoder import Arrival, Decoder, NullSink, RunState, StreamInfo
+from slipless.loss.collect import LossSink, RateStream, RunFacts
 from slipless.protocol import wire
 
 BOARD, RUN = 2, 5

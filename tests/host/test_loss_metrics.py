@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from slipless.loss_metrics import (
+from slipless.loss.metrics import (
     as_octet,
     burst_gap,
     inter_loss_period_lengths,

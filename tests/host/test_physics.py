@@ -1,4 +1,4 @@
-"""Each formula of slipless.physics against a published or worked value, and
+"""Each formula of slipless.model.physics against a published or worked value, and
 against an independent computation (numerical integration or an ODE solver).
 
 Worked values are those of /work/shared/references.md sections 8 and 9, which
@@ -12,7 +12,7 @@ import math
 import pytest
 from scipy import constants, integrate
 
-from slipless import physics
+from slipless.model import physics
 
 TWO_PI = 2 * math.pi
 

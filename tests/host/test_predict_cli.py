@@ -12,7 +12,7 @@ import pytest
 from rich.console import Console
 
 from slipless.cli import build_parser, main
-from slipless.predict import run_predict
+from slipless.cli.predict import run_predict
 
 RIG = ["--inner-mm", "20", "--outer-mm", "40", "--cap-length-mm", "100", "--turns", "500",
        "--coil-length-mm", "200", "--coil-radius-mm", "50", "--amps", "2", "--rpm", "60"]

@@ -18,14 +18,14 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from slipless import physics
 from slipless.cli import main
 from slipless.errors import InputError
-from slipless.pulses import Analysis, Options, analyse, parse_rates
-from slipless.pulses_data import RunData, Series, decode_runs
-from slipless.pulses_find import Pulse, choose_windows, from_current, from_events, rise_time
-from slipless.pulses_fit import coefficients, factorial, ols
-from slipless.pulses_reduce import Settings, window_mean
+from slipless.model import physics
+from slipless.pulses.analysis import Analysis, Options, analyse, parse_rates
+from slipless.pulses.data import RunData, Series, decode_runs
+from slipless.pulses.find import Pulse, choose_windows, from_current, from_events, rise_time
+from slipless.pulses.fit import coefficients, factorial, ols
+from slipless.pulses.reduce import Settings, window_mean
 from slipless.sim import rig
 from slipless.sim.channel import ChannelConfig, ChannelLog, transmit
 
@@ -161,7 +161,7 @@ def test_response_removes_a_linear_drift_exactly() -> None:
                             "coil_current": Series(t, 2.0 * on * sign),
                             "gyro_z": Series(t, np.zeros_like(t))})
         rd.coil_t_s, rd.coil_state = np.array([2.0, 3.0, 6.0, 7.0]), np.array([1, 0, -1, 0])
-        from slipless.pulses_reduce import plan_run, reduce_run
+        from slipless.pulses.reduce import plan_run, reduce_run
 
         plan = plan_run(rd, Settings(settle_s=0.02))
         assert plan is not None

@@ -17,10 +17,11 @@ from typing import Literal
 import numpy as np
 import pytest
 
-from slipless.decoder import Decoder, NullSink, RunState, StreamInfo
-from slipless.pulses import Options, analyse
-from slipless.pulses_data import ArraySink, RunData, Series, decode_runs, runs_from_channels
-from slipless.pulses_find import (
+from slipless.decode.decoder import Decoder, NullSink, RunState, StreamInfo
+from slipless.decode.store import ChannelStore
+from slipless.pulses.analysis import Options, analyse
+from slipless.pulses.data import ArraySink, RunData, Series, decode_runs, runs_from_channels
+from slipless.pulses.find import (
     LOST_END,
     Pulse,
     abs_percentile,
@@ -31,8 +32,7 @@ from slipless.pulses_find import (
     rise_of,
     rise_time,
 )
-from slipless.pulses_reduce import Settings, _resample, window_mean
-from slipless.runstore import ChannelStore
+from slipless.pulses.reduce import Settings, _resample, window_mean
 from slipless.sim import rig
 
 EIGHT_HOURS_US = 8 * 3600 * 10**6

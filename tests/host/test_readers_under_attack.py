@@ -16,8 +16,8 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from slipless.capture import CaptureReader, CaptureWriter
-from slipless.deframe import FastDeframer
+from slipless.decode.deframe import FastDeframer
+from slipless.io.capture import CaptureReader, CaptureWriter
 from slipless.protocol import wire
 from slipless.sim.board import SimConfig, simulate
 
@@ -50,7 +50,7 @@ def record_bytes(data: bytes) -> bytes:
     import struct
     import zlib
 
-    from slipless.capture import _REC_HEAD, SYNC
+    from slipless.io.capture import _REC_HEAD, SYNC
 
     out = b""
     for i in range(0, len(data), 200):
@@ -186,7 +186,7 @@ def test_crafted_capture_json_never_raises(payload: bytes) -> None:
     import struct
     import zlib
 
-    from slipless import capture
+    from slipless.io import capture
 
     head = capture._FILE_HEAD.pack(capture.MAGIC, capture.VERSION, len(payload),
                                    zlib.crc32(payload)) + payload
@@ -202,7 +202,7 @@ def test_bulk_corruption_counts_and_its_control(monkeypatch) -> None:
     sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "bench"))
     import bench_fuzz
 
-    import slipless.deframe as deframe
+    import slipless.decode.deframe as deframe
 
     fig = bench_fuzz.run(20_000, seed=3)
     assert fig["fuzz_cases"] >= 20_000 and fig["fuzz_false_accepts"] == 0

@@ -9,10 +9,11 @@ from __future__ import annotations
 import asyncio
 from pathlib import Path
 
-from slipless import capture, keys
-from slipless.record import Recorder, RecordOptions
+from slipless.io import capture
+from slipless.record import keys
+from slipless.record.recorder import Recorder, RecordOptions
+from slipless.record.transports.bumble_central import BumbleCentral
 from slipless.sim import ble_board, virtual_time
-from slipless.transports.bumble_central import BumbleCentral
 
 KEY = bytes(range(32))
 CONFIG = {

@@ -11,9 +11,9 @@ from typing import Any
 
 import pytest
 
-from slipless import capture
-from slipless.record import STATES, Recorder, RecordOptions
-from slipless.transports import BoardNotFound, ConnectFailed, LinkError, NoBluetooth, WrongGatt
+from slipless.io import capture
+from slipless.record.recorder import STATES, Recorder, RecordOptions
+from slipless.record.transports import BoardNotFound, ConnectFailed, LinkError, NoBluetooth, WrongGatt
 
 
 class Scripted:

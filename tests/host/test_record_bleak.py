@@ -27,14 +27,14 @@ from bleak.backends.client import BaseBleakClient
 from bleak.backends.scanner import AdvertisementData, BaseBleakScanner
 from bleak.backends.service import BleakGATTService, BleakGATTServiceCollection
 
-from slipless import capture
 from slipless.cli import decode_files
+from slipless.io import capture
 from slipless.protocol import wire
-from slipless.record import Recorder, RecordOptions
+from slipless.record.recorder import Recorder, RecordOptions
+from slipless.record.transports import LINK_INFO_KEYS, BoardNotFound, WrongGatt, address_kind
+from slipless.record.transports.bleak_central import BleakCentral
 from slipless.sim.board import SimConfig, simulate
 from slipless.sim.channel import notifications
-from slipless.transports import LINK_INFO_KEYS, BoardNotFound, WrongGatt, address_kind
-from slipless.transports.bleak_central import BleakCentral
 
 MAC_ID = "5B1E9F0C-3D2A-4E6B-9C8D-7A6F5E4D3C2B"  # how CoreBluetooth names a peripheral
 MTU = 185  # an MTU CoreBluetooth commonly settles on with such boards (from memory)

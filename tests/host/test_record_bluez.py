@@ -30,12 +30,12 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # tests/: the blue
 from bluez.daemon import PrivateBus, daemon_path  # noqa: E402
 from bluez.harness import DoubleThread  # noqa: E402
 
-from slipless import capture  # noqa: E402
 from slipless.cli import decode_files, main  # noqa: E402
+from slipless.io import capture  # noqa: E402
 from slipless.protocol import wire  # noqa: E402
-from slipless.record import Recorder, RecordOptions  # noqa: E402
-from slipless.transports import LINK_INFO_KEYS, BoardNotFound, NoBluetooth, WrongGatt  # noqa: E402
-from slipless.transports.bleak_central import BleakCentral  # noqa: E402
+from slipless.record.recorder import Recorder, RecordOptions  # noqa: E402
+from slipless.record.transports import LINK_INFO_KEYS, BoardNotFound, NoBluetooth, WrongGatt  # noqa: E402
+from slipless.record.transports.bleak_central import BleakCentral  # noqa: E402
 
 pytestmark = pytest.mark.skipif(daemon_path() is None,
                                 reason="no dbus-daemon here (Debian package dbus; `make dbus`)")

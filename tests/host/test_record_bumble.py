@@ -11,11 +11,11 @@ import asyncio
 import json
 from pathlib import Path
 
-from slipless import capture
 from slipless.cli import decode_files
-from slipless.record import Recorder, RecordOptions
+from slipless.io import capture
+from slipless.record.recorder import Recorder, RecordOptions
+from slipless.record.transports.bumble_central import BumbleCentral
 from slipless.sim import ble_board, virtual_time
-from slipless.transports.bumble_central import BumbleCentral
 
 CONFIG = {
     "board_id": 11, "name": "rotor-e2e",
@@ -116,7 +116,7 @@ async def pull_session(tmp: Path) -> None:
                    RecordOptions(duration_s=1.5, ping_every_s=0.5)).run()
     w1.close()
     await asyncio.sleep(0.2)
-    from slipless.record_cli import pull_into
+    from slipless.cli.record import pull_into
 
     w2 = capture.CaptureWriter(tmp / "pull.slcap", {}, clock=clock)
     await pull_into(Recorder(BumbleCentral(laptop_dev, None), w2, RecordOptions(pull=True)),

@@ -9,7 +9,7 @@ from pathlib import Path
 import pytest
 
 from slipless.cli import main
-from slipless.record_cli import host_info
+from slipless.cli.record import host_info
 
 
 def one_line_error(capsys) -> str:

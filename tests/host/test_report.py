@@ -10,7 +10,7 @@ from pathlib import Path
 import pytest
 
 from slipless.cli import main
-from slipless.report import collect, write
+from slipless.report.page import collect, write
 from slipless.run import open_run
 from slipless.sim.scenario import ScenarioConfig, build
 

@@ -16,7 +16,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from slipless.report import collect, write
+from slipless.report.page import collect, write
 from slipless.run import open_run
 from slipless.sim.scenario import ScenarioConfig, build
 

@@ -13,7 +13,7 @@ import pytest
 import slipless
 from slipless.cli import main
 from slipless.errors import InputError
-from slipless.inputs import decode_passes
+from slipless.io.inputs import decode_passes
 from slipless.sim.scenario import ScenarioConfig, build
 
 

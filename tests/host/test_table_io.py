@@ -17,14 +17,14 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from slipless import capture, table_io, table_parquet
 from slipless.cli import decode_files
+from slipless.decode.tables import SPECS, read_decoded
+from slipless.io import capture, table_files, table_io, table_parquet
+from slipless.io.table_csv import csv_rows
+from slipless.io.table_io import FLOAT, INT, STR, UTC, Coded, Const, TickSeconds, spec
 from slipless.protocol import wire
 from slipless.sim.board import SimConfig, simulate
 from slipless.sim.channel import notifications
-from slipless.table_csv import csv_rows
-from slipless.table_io import FLOAT, INT, STR, UTC, Coded, Const, TickSeconds, spec
-from slipless.tables import SPECS, read_decoded
 
 VECTORS = Path(__file__).resolve().parents[2] / "protocol" / "vectors"
 WALL0_NS = 1_700_000_000_123_456_789  # 2023-11-14T22:13:20.123456789Z
@@ -226,8 +226,8 @@ def test_pandas_reads_the_dataset(decoded: dict[str, Path]) -> None:
 
 def test_row_groups_are_large(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
     pq = pytest.importorskip("pyarrow.parquet")
-    from slipless.decoder import Decoder
-    from slipless.tables import TableSink
+    from slipless.decode.decoder import Decoder
+    from slipless.decode.tables import TableSink
 
     monkeypatch.setattr(table_parquet, "ROW_GROUP_ROWS", 1000)
     data = b"".join(f for _, f in simulate(SimConfig(seconds=3)))
@@ -251,11 +251,11 @@ def test_parts_beyond_the_open_limit_go_on_in_new_files(tmp_path: Path,
     monkeypatch.setattr(table_parquet, "MAX_OPEN_PARTS", 2)
     s = table_io.Spec("t", spec("t", [("board", INT), ("run", INT), ("x", FLOAT)]).columns,
                       ("board", "run"))
-    w = table_io.open_table(tmp_path, s, "parquet")
+    w = table_files.open_table(tmp_path, s, "parquet")
     for i in range(12):
         w.write([Const(i % 4), Const(0), np.arange(3.0) + i])
     w.close()
-    got = table_io.read_columns(tmp_path / "t", ("board", "x"))
+    got = table_files.read_columns(tmp_path / "t", ("board", "x"))
     assert sorted(zip(got["board"].tolist(), got["x"].tolist())) == sorted(
         (i % 4, float(v)) for i in range(12) for v in np.arange(3.0) + i)
     assert (tmp_path / "t" / "board=0" / "run=0" / "part-1.parquet").exists()
@@ -263,7 +263,7 @@ def test_parts_beyond_the_open_limit_go_on_in_new_files(tmp_path: Path,
 
 def test_a_failing_write_is_raised(tmp_path: Path) -> None:
     bg = table_io.Background()
-    w = table_io.open_table(tmp_path, spec("t", [("x", INT)]), "csv", background=bg)
+    w = table_files.open_table(tmp_path, spec("t", [("x", INT)]), "csv", background=bg)
 
     def broken(*_: object) -> None:
         raise OSError("disk full")
@@ -279,14 +279,14 @@ def test_a_failing_write_is_raised(tmp_path: Path) -> None:
 def test_no_pyarrow_is_one_clear_line(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
     monkeypatch.setitem(sys.modules, "pyarrow", None)
     with pytest.raises(table_io.InputError, match="needs pyarrow"):
-        table_io.open_table(tmp_path, SPECS["samples"], "parquet")
+        table_files.open_table(tmp_path, SPECS["samples"], "parquet")
     assert wire.VERSION  # CSV needs nothing beyond numpy
-    w = table_io.open_table(tmp_path, SPECS["runs"], "csv")
+    w = table_files.open_table(tmp_path, SPECS["runs"], "csv")
     w.close()
 
 
 def test_pulses_reads_decode_folders_of_either_format(decoded: dict[str, Path]) -> None:
-    from slipless.pulses_data import read_tables
+    from slipless.pulses.data import read_tables
 
     a, b = read_tables(decoded["csv"]), read_tables(decoded["parquet"])
     assert [(r.board, r.run, sorted(r.streams)) for r in a] == \

@@ -48,7 +48,7 @@ def installed(tmp_path_factory) -> Path:
 
 def test_installed_package_is_the_wheel(installed: Path) -> None:
     py = installed / "venv" / "bin" / "python"
-    out = run([str(py), "-c", "import slipless, slipless.boardfiles as b, json; print(json.dumps("
+    out = run([str(py), "-c", "import slipless, slipless.board.files as b, json; print(json.dumps("
                "[slipless.__file__, str(b.firmware_dir()), str(b.wire_path())]))"], installed)
     paths = json.loads(out.stdout)
     assert all(p.startswith(str(installed / "venv")) for p in paths), paths

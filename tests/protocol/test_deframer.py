@@ -8,7 +8,7 @@ import random
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from slipless.deframe import FastDeframer
+from slipless.decode.deframe import FastDeframer
 from slipless.protocol import wire
 
 

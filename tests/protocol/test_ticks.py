@@ -4,10 +4,11 @@ from __future__ import annotations
 
 import random
 
+from collect_sink import CollectSink
 from hypothesis import given
 from hypothesis import strategies as st
 
-from slipless.decoder import CollectSink, Decoder
+from slipless.decode.decoder import Decoder
 from slipless.protocol import wire
 
 WRAP = 1 << 32

@@ -8,8 +8,9 @@ import sys
 from pathlib import Path
 
 import pytest
+from collect_sink import CollectSink, collect
 
-from slipless.decoder import CollectSink, Decoder, collect
+from slipless.decode.decoder import Decoder
 
 VECTORS = Path(__file__).resolve().parents[2] / "protocol" / "vectors"
 CASES = sorted(p.stem for p in VECTORS.glob("*.json"))

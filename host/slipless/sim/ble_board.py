@@ -37,7 +37,7 @@ from bumble.host import Host
 from bumble.link import LocalLink
 from bumble.transport.common import AsyncPipeSink
 
-from slipless.boardfiles import firmware_dir, protocol_dir
+from slipless.board.files import firmware_dir, protocol_dir
 from slipless.sim.links import DEFAULT_LINK, LINKS, AirLink
 
 _IRQ_CENTRAL_CONNECT = 1

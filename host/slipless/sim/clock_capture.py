@@ -20,10 +20,10 @@ from pathlib import Path
 
 import numpy as np
 
-from slipless import __version__
-from slipless.capture import RX, TX, CaptureWriter
+from slipless.io.capture import RX, TX, CaptureWriter
 from slipless.protocol import wire
 from slipless.sim.clocks import TICK_HZ, ClockSim, deliver
+from slipless.version import __version__
 
 H = ord("h")
 SIG_HZ = 0.2

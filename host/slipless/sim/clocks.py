@@ -15,7 +15,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from slipless.clockmodel import Exchanges
+from slipless.align.clockmodel import Exchanges
 
 TICK_HZ = 1_000_000
 

@@ -12,11 +12,11 @@ from dataclasses import dataclass
 # The link layer's numbers live with the budget, which does the same arithmetic
 # for real links: 27-octet payloads without Data Length Extension, 251 with it
 # (Core v4.2), the L2CAP and ATT notification headers, the default ATT MTU.
-from slipless.budget import ATT_MTU_MIN as DEFAULT_MTU
-from slipless.budget import ATT_NOTIFY_HEADER as NOTIFY_HEADER
-from slipless.budget import L2CAP_HEADER, LL_PAYLOAD_DLE
-from slipless.budget import LL_PAYLOAD_BASIC as LL_PAYLOAD
-from slipless.budget import ll_pdus as packets
+from slipless.board.budget import ATT_MTU_MIN as DEFAULT_MTU
+from slipless.board.budget import ATT_NOTIFY_HEADER as NOTIFY_HEADER
+from slipless.board.budget import L2CAP_HEADER, LL_PAYLOAD_DLE
+from slipless.board.budget import LL_PAYLOAD_BASIC as LL_PAYLOAD
+from slipless.board.budget import ll_pdus as packets
 
 __all__ = ["DEFAULT_MTU", "L2CAP_HEADER", "LL_PAYLOAD", "LL_PAYLOAD_DLE", "NOTIFY_HEADER",
            "AirLink", "LINKS", "DEFAULT_LINK", "packets"]

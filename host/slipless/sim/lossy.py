@@ -20,7 +20,7 @@ import random
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from slipless import capture
+from slipless.io import capture
 from slipless.protocol import wire
 
 BOARD, RUN = 3, 9

@@ -10,7 +10,7 @@ import json
 from pathlib import Path
 from typing import Any
 
-from slipless import capture
+from slipless.io import capture
 from slipless.protocol import wire
 from slipless.sim.ble_board import firmware_on_path
 

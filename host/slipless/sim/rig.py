@@ -29,8 +29,8 @@ from typing import Any
 import numpy as np
 from scipy.signal import lfilter
 
-from slipless import physics
-from slipless.predict import RigInputs, compute
+from slipless.model import physics
+from slipless.model.predict import RigInputs, compute
 from slipless.protocol import wire
 
 TICK_HZ = 1_000_000

@@ -30,15 +30,15 @@ from typing import Any
 
 import numpy as np
 
-from slipless import __version__
-from slipless.capture import CaptureWriter
-from slipless.record import Progress, Recorder, RecordOptions
+from slipless.io.capture import CaptureWriter
+from slipless.record.recorder import Progress, Recorder, RecordOptions
+from slipless.record.transports.bumble_central import BumbleCentral
 from slipless.sim import rig, rig_board, virtual_time
 from slipless.sim.ble_board import VirtualBoard, firmware_on_path, virtual_pair
 from slipless.sim.clocks import ClockSim
 from slipless.sim.links import DEFAULT_LINK, LINKS, AirLink
 from slipless.sim.rotating_link import LinkPlan, RotatingLink, Truth
-from slipless.transports.bumble_central import BumbleCentral
+from slipless.version import __version__
 
 BOOT_S = 5000.0  # laptop monotonic time when the board boots
 WALL_OFFSET_NS = 1_790_000_000_000_000_000  # the simulated laptop's wall minus monotonic clock

@@ -13,7 +13,7 @@ from collections.abc import Callable, Iterable
 
 import numpy as np
 
-from slipless.frames import parse_body
+from slipless.decode.frames import parse_body
 from slipless.protocol import wire
 
 

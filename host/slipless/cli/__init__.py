@@ -1,0 +1,186 @@
+"""The `slipless` command line.
+
+Every user-facing failure is one line on stderr and a non-zero exit:
+2 for bad input or usage, 1 for anything unexpected (a bug: please report).
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+from collections.abc import Callable, Sequence
+from pathlib import Path
+from typing import NoReturn
+
+from rich.console import Console
+from rich.table import Table
+
+from slipless.decode.decoder import Decoder
+from slipless.decode.tables import FORMATS
+from slipless.errors import SliplessError
+from slipless.protocol import wire
+from slipless.version import __version__
+
+EXIT_INPUT = 2
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message: str) -> NoReturn:  # one line, not the usage block
+        self.exit(EXIT_INPUT, f"slipless: error: {message} (see slipless --help)\n")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    p = _Parser(prog="slipless", description="Rotor board telemetry: decode, tables, demo, flash.")
+    p.add_argument("--version", action="version", version=f"slipless {__version__}")
+    sub = p.add_subparsers(dest="command", required=True, parser_class=_Parser)
+
+    d = sub.add_parser("decode", help="decode captures or raw byte streams into tidy tables")
+    d.add_argument("inputs", nargs="+", type=Path, metavar="INPUT")
+    d.add_argument("--out", type=Path, required=True, metavar="DIR", help="folder for the tables")
+    d.add_argument("--mirror", type=Path, action="append", default=[], metavar="FILE",
+                   help="the board's file mirror, merged after the inputs (repeatable)")
+    d.add_argument("--format", choices=FORMATS, default="csv", help="table format (default csv)")
+    d.add_argument("--quiet", action="store_true", help="no progress bar or summary")
+
+    m = sub.add_parser("demo", help="a simulated run (the board's firmware, a lossy radio, the "
+                       "recorder) analysed end to end, with a report")
+    m.add_argument("--out", type=Path, default=Path("demo-out"), metavar="DIR")
+    m.add_argument("--seconds", type=float, default=180.0,
+                   help="simulated run length, 60 to 3600 (default 180)")
+    m.add_argument("--seed", type=int, default=1)
+    from slipless.sim.links import DEFAULT_LINK, LINKS
+
+    m.add_argument("--link", choices=tuple(LINKS), default=DEFAULT_LINK,
+                   help="the radio link: " + "; ".join(f"{k}: {v.what}" for k, v in LINKS.items())
+                   + f" (default {DEFAULT_LINK})")
+
+    f = sub.add_parser("flash", help="check a config, compile and copy the firmware to a board, verify")
+    f.add_argument("--port", help="the board's serial port, e.g. /dev/ttyUSB0 or COM3 (not needed "
+                   "with --dry-run)")
+    f.add_argument("--board", metavar="PROFILE",
+                   help="board profile (default: the config's profile, else esp32-devkitc)")
+    f.add_argument("--config", type=Path, metavar="FILE", help="config JSON (default: built-in defaults)")
+    f.add_argument("--dry-run", action="store_true", help="print what would be copied; touch nothing")
+
+    from slipless.cli.record import add_parsers as add_record_parsers
+
+    add_record_parsers(sub)
+    from slipless.cli.analysis_args import add_parsers as add_analysis_parsers
+
+    add_analysis_parsers(sub)
+    from slipless.cli.loss import add_parser as add_loss_parser
+
+    add_loss_parser(sub)
+    from slipless.cli.align import add_parser as add_align_parser
+
+    add_align_parser(sub)
+    from slipless.cli.report import add_parser as add_report_parser
+
+    add_report_parser(sub)
+    from slipless.cli.budget import add_parser as add_budget_parser
+
+    add_budget_parser(sub)
+    from slipless.cli.board import add_parser as add_control_parser
+
+    add_control_parser(sub)
+    return p
+
+
+# command -> (module, function): each is imported only when it runs
+COMMANDS = {
+    "demo": ("slipless.cli.demo", "run_demo"),
+    "flash": ("slipless.cli.flash", "run_flash"),
+    "align": ("slipless.cli.align", "run_align"),
+    "record": ("slipless.cli.record", "run_record"),
+    "pull": ("slipless.cli.record", "run_pull"),
+    "predict": ("slipless.cli.predict", "run_predict"),
+    "pulses": ("slipless.cli.pulses", "run_pulses"),
+    "loss": ("slipless.cli.loss", "run_loss"),
+    "report": ("slipless.cli.report", "run_report"),
+    "budget": ("slipless.cli.budget", "run_budget"),
+    "board": ("slipless.cli.board", "run_board"),
+}
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    args = build_parser().parse_args(argv)
+    console = Console(width=None if sys.stdout.isatty() else 110)
+    try:
+        if args.command == "decode":
+            return cmd_decode(args, console)
+        module, func = COMMANDS[args.command]
+        run: Callable[[argparse.Namespace, Console], int] = getattr(
+            importlib.import_module(module), func)  # lazily: decoding needs none of them
+        return run(args, console)
+    except SliplessError as exc:
+        print(f"slipless: error: {exc}", file=sys.stderr)
+        return EXIT_INPUT
+    except KeyboardInterrupt:
+        print("slipless: interrupted", file=sys.stderr)
+        return 130
+    return 1  # pragma: no cover - argparse enforces a command
+
+
+def decode_files(inputs: Sequence[Path], out: Path, fmt: str, console: Console | None,
+                 mirrors: Sequence[Path] = ()) -> Decoder:
+    """Decode every input (then every mirror file) into tables in `out`.
+
+    Inputs are merged by board, run and sequence number: the first copy of a
+    frame wins, later copies are duplicates, so the order is radio first,
+    then the mirror filling what the radio lost. Returns the decoder for its
+    counts.
+    """
+    from slipless.cli.progress import bytes_progress
+    from slipless.run import open_run
+
+    return open_run(inputs, mirrors, tables=out, table_format=fmt, progress=bytes_progress(console),
+                    hold=False).decoder
+
+
+def cmd_decode(args: argparse.Namespace, console: Console) -> int:
+    dec = decode_files(args.inputs, args.out, args.format, None if args.quiet else console,
+                       args.mirror)
+    if not args.quiet:
+        print_summary(dec, console)
+        console.print(f"tables written to {args.out}/")
+    return 0
+
+
+def print_summary(dec: Decoder, console: Console) -> None:
+    t = Table(title="decoded runs", title_justify="left")
+    for col in ("board", "run", "fw", "frames", "gaps", "missing", "corrupt", "dup", "samples",
+                "events", "end"):
+        t.add_column(col, justify="right")
+    for r in sorted(dec.runs.values(), key=lambda r: r.key):
+        corrupt = dec.corrupt_guess(r)
+        end = wire.END_REASON_NAMES.get(r.end["reason"], "?") if r.end else "(none seen)"
+        t.add_row(str(r.board), str(r.run), r.fw or "?", str(r.received), str(len(r.gaps)),
+                  str(dec.missing(r) - corrupt), str(corrupt), str(r.duplicates), str(r.samples),
+                  str(r.events), end)
+    console.print(t)
+    c = dec.counters
+    console.print(
+        f"bytes {c.bytes:,}  good frames {c.frames:,}  damaged segments {c.corrupt + c.overlong:,} "
+        f"({c.corrupt_bytes:,} B)  skipped at start {c.skipped_bytes:,} B")
+    notes = []
+    if c.unknown_kind:
+        notes.append(f"{c.unknown_kind} frames of a kind this release does not know were skipped")
+    if c.bad_version:
+        notes.append(f"{c.bad_version} frames of protocol version(s) "
+                     f"{sorted(c.versions_seen)} were skipped")
+    if c.malformed:
+        notes.append(f"{c.malformed} frames passed the CRC but did not match their layout")
+    for r in dec.runs.values():
+        if r.undecodable:
+            notes.append(f"board {r.board} run {r.run}: {r.undecodable} frames could not be "
+                         "decoded (no run descriptor seen)")
+        if r.ticks_uncertain:
+            notes.append(f"board {r.board} run {r.run}: {r.ticks_uncertain} frames have "
+                         "uncertain board time (long gap without a full tick)")
+    for n in notes + dec.notes:
+        console.print(f"note: {n}")
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

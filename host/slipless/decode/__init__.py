@@ -1,0 +1,2 @@
+"""Bytes to records: the deframer, frame layouts, the streaming decoder, the
+decode sink (tables) and the compact channel store."""

@@ -1,0 +1,897 @@
+"""Streaming decoder: bytes in, typed records out, constant memory.
+
+Sans-IO like the deframer under it: `feed(chunk)` hands records to a sink,
+`finish()` flushes what was held and closes the accounting. Damaged input is
+counted, never raised (see Counters). What it keeps per run is bounded:
+the descriptor, a tick reference, the list of sequence gaps and at most
+MAX_HELD frames that wait for a descriptor or a tick anchor; and, so frames
+that come late (resent, from a mirror) unwrap against a reference near them,
+one earlier reference per half hot span (a few thousand in a day's run).
+
+Speed: a chunk of at least BULK_BYTES (a file read) goes through
+FastDeframer.feed_block and _feed_block: the headers of all its frames are
+read with one numpy view, and each stretch of in-order SAMPLES frames of one
+run is accounted and unwrapped together (the tick rule applied as a running
+sum of 32-bit differences), its values cut out of the decoded bytes per
+stream by numpy. Every other frame, and every frame of a small chunk (a
+notification), takes the per-frame path (_frame). The bulk path calls the
+sink exactly as _frame would, skipping only the calls that a sink keeping
+NullSink's no-op methods ignores; tests hold both paths equal.
+"""
+
+from __future__ import annotations
+
+import bisect
+import struct
+from dataclasses import dataclass, field
+from typing import Any, Protocol
+
+import numpy as np
+
+from slipless.decode.deframe import FastDeframer, FrameBlock
+from slipless.decode.frames import MalformedFrame, parse_body
+from slipless.protocol import wire
+
+MAX_HELD = 4096  # frames per run waiting for a descriptor or an anchor (~3 min at 20/s)
+_HEADER = struct.Struct(wire.HEADER)
+_SAMPLES_HEAD = struct.Struct(wire.HEADER + wire.SAMPLES_FIXED.lstrip("<"))
+_DESC_FIXED = struct.Struct(wire.DESCRIPTOR_FIXED)
+_TICK_LIMIT = 1 << 31  # the nearest-tick rule is exact within +-2**31 us
+_ANCHOR_KINDS = (wire.DESCRIPTOR, wire.STATUS, wire.SYNC, wire.END)  # carry 64-bit ticks
+_VK_SAMPLES = (wire.VERSION << 4) | wire.SAMPLES
+_DTYPES = {0x62: "<i1", 0x42: "<u1", 0x68: "<i2", 0x48: "<u2", 0x69: "<i4", 0x49: "<u4",
+           0x66: "<f4"}
+BULK_BYTES = 16384  # chunks at least this long are decoded as a block (about 70 full frames)
+# Blocks are cut to this size, and samples handed over in pieces of at most EMIT_SAMPLES,
+# so no temporary passes about a megabyte: malloc then reuses its memory instead of
+# giving it back and taking fresh pages (page faults cost as much as the decoding).
+BLOCK_BYTES = 256 << 10
+EMIT_SAMPLES = 1 << 16
+_MIN_STRETCH = 4  # in-order SAMPLES frames taken together; shorter runs of them go frame by frame
+# The SAMPLES header as a numpy record (packed, 14 bytes), read for every frame of a block.
+_HEAD = np.dtype([("vk", "u1"), ("board", "<u2"), ("run", "<u2"), ("seq", "<u4"), ("stream", "u1"),
+                  ("tick32", "<u4")])
+_HEAD_COLS = np.arange(_HEAD.itemsize)
+_NO_STREAM = 255  # item size of a stream a run does not describe: no SAMPLES payload divides by it
+_TICK_SAFE = 1 << 62  # block ticks are int64 sums: references beyond this go frame by frame
+
+
+ORIGINS = ("radio", "resend", "mirror", "stream")
+
+
+@dataclass(frozen=True)
+class Arrival:
+    """Where and when a chunk of bytes reached the laptop.
+
+    source tells apart byte streams that must never be glued together (one per
+    board connection in a capture); mono_ns and wall_ns are the laptop's clocks
+    at reception (-1 when unknown, as in a raw stream or a mirror file); origin
+    is how the bytes came: "radio" (live link), "mirror" (the board's file),
+    "stream" (any other byte stream). A radio frame that fills an earlier gap
+    is reported with origin "resend".
+    """
+
+    source: int = 0
+    mono_ns: int = -1
+    wall_ns: int = -1
+    origin: str = "stream"
+
+
+STREAM = Arrival()
+
+
+@dataclass
+class StreamInfo:
+    stream: int
+    type: int
+    flags: int
+    period_us: int
+    scale: float
+    offset: float
+    name: str
+    unit: str
+
+    @property
+    def dtype(self) -> np.dtype[Any]:
+        return np.dtype(_DTYPES[self.type])
+
+    @property
+    def is_state(self) -> bool:
+        return bool(self.flags & wire.FLAG_STATE)
+
+
+@dataclass
+class RunState:
+    """What the decoder knows about one (board, run)."""
+
+    board: int
+    run: int
+    tick_hz: int = 0
+    fw: str = ""
+    max_gap_us: int = wire.DEFAULT_MAX_GAP_MS * 1000
+    hot_span: int = _TICK_LIMIT // (wire.DEFAULT_MAX_GAP_MS * 1000) - 1  # see set_max_gap
+    n_streams: int = 0
+    streams: dict[int, StreamInfo] = field(default_factory=dict)
+    described: bool = False
+    ref_seq: int = -1  # latest frame whose 64-bit tick is known
+    ref_tick: int = 0
+    kept_refs: list[tuple[int, int]] = field(default_factory=list)  # (seq, tick): one per half
+    # hot span, so a frame that comes late (resent, from a mirror) still finds a reference
+    held: list[tuple[int, int, bytes, int, Arrival]] = field(default_factory=list)
+    first_seq: int = -1
+    high_seq: int = -1
+    gaps: list[list[int]] = field(default_factory=list)  # [first, last, n_corrupt_guess]
+    damage_mark: int = 0  # deframer damage count when the last frame of this run arrived
+    received: int = 0
+    duplicates: int = 0
+    samples: int = 0
+    events: int = 0
+    end: dict[str, Any] | None = None
+    ticks_uncertain: int = 0
+    undecodable: int = 0
+    bad_streams: int = 0  # descriptor entries with a sample type this release does not know
+    bad_stream_ids: set[int] = field(default_factory=set)
+
+    @property
+    def key(self) -> tuple[int, int]:
+        return (self.board, self.run)
+
+    def set_max_gap(self, max_gap_ms: int) -> None:
+        self.max_gap_us = max(1, max_gap_ms) * 1000
+        # frames after the reference within which the nearest-tick rule holds
+        self.hot_span = _TICK_LIMIT // self.max_gap_us - 1
+
+    def tick_ok(self, seq: int) -> bool:
+        """Can a 32-bit tick of frame `seq` be unwrapped against a reference?"""
+        return self.ref_for(seq) is not None
+
+    def ref_for(self, seq: int) -> int | None:
+        """The 64-bit tick of a reference near enough `seq` for the nearest-tick
+        rule: the latest one, else the nearest of those kept; None if none is."""
+        if self.ref_seq < 0:
+            return None
+        if (abs(seq - self.ref_seq) + 1) * self.max_gap_us < _TICK_LIMIT:
+            return self.ref_tick
+        i = bisect.bisect_left(self.kept_refs, (seq,))
+        for ref_seq, ref_tick in self.kept_refs[max(0, i - 1) : i + 1]:
+            if (abs(seq - ref_seq) + 1) * self.max_gap_us < _TICK_LIMIT:
+                return ref_tick
+        return None
+
+    def set_ref(self, seq: int, tick: int) -> None:
+        """A newer frame whose 64-bit tick is known becomes the reference."""
+        self.ref_seq, self.ref_tick = seq, tick
+        kept = self.kept_refs
+        if not kept or (seq - kept[-1][0]) * 2 >= self.hot_span:
+            kept.append((seq, tick))
+
+
+class Sink(Protocol):
+    def descriptor(self, run: RunState) -> None: ...
+    def samples(self, run: RunState, info: StreamInfo, seq: np.ndarray, tick: np.ndarray,
+                raw: np.ndarray) -> None: ...
+    def event(self, run: RunState, seq: int, tick: int, code: int, value: int) -> None: ...
+    def status(self, run: RunState, seq: int, fields: dict[str, Any]) -> None: ...
+    def reply(self, run: RunState, seq: int, kind: int, fields: dict[str, Any]) -> None: ...
+    def frame(self, run: RunState, seq: int, kind: int, fate: str, offset: int, origin: str,
+              arrival: Arrival) -> None: ...
+    def timing(self, run: RunState, seq: int, kind: int, tick: int, arrival: Arrival) -> None: ...
+
+
+class NullSink:
+    """Accepts everything; for benchmarks and counting."""
+
+    def descriptor(self, run: RunState) -> None:
+        pass
+
+    def samples(self, run: RunState, info: StreamInfo, seq: np.ndarray, tick: np.ndarray,
+                raw: np.ndarray) -> None:
+        pass
+
+    def event(self, run: RunState, seq: int, tick: int, code: int, value: int) -> None:
+        pass
+
+    def status(self, run: RunState, seq: int, fields: dict[str, Any]) -> None:
+        pass
+
+    def reply(self, run: RunState, seq: int, kind: int, fields: dict[str, Any]) -> None:
+        pass
+
+    def frame(self, run: RunState, seq: int, kind: int, fate: str, offset: int, origin: str,
+              arrival: Arrival) -> None:
+        pass
+
+    def timing(self, run: RunState, seq: int, kind: int, tick: int, arrival: Arrival) -> None:
+        pass
+
+
+@dataclass
+class Counters:
+    """Stream-level tallies (per-run ones live on RunState)."""
+
+    bytes: int = 0
+    frames: int = 0
+    corrupt: int = 0
+    corrupt_bytes: int = 0
+    overlong: int = 0
+    skipped_bytes: int = 0
+    unknown_kind: int = 0
+    bad_version: int = 0
+    versions_seen: set[int] = field(default_factory=set)
+    malformed: int = 0
+    commands: int = 0
+
+
+# A batch's frames as arrays: seq and first tick per frame, values per frame, the values
+# (None when the sink does not take them).
+_Piece = tuple[np.ndarray, np.ndarray, np.ndarray, "np.ndarray | None"]
+
+
+class _Batch:
+    """SAMPLES frames of one run and stream collected between flushes: frames
+    decoded one by one in lists, stretches decoded as a block in pieces (the
+    lists become a piece before the next one is added, so order is kept)."""
+
+    __slots__ = ("run", "info", "itemsize", "seqs", "ticks", "payloads", "pieces")
+
+    def __init__(self, run: RunState, info: StreamInfo) -> None:
+        self.run = run
+        self.info = info
+        self.itemsize = info.dtype.itemsize
+        self.seqs: list[int] = []
+        self.ticks: list[int] = []
+        self.payloads: list[bytes] = []
+        self.pieces: list[_Piece] = []
+
+    def add(self, piece: _Piece) -> None:
+        self.close_lists(piece[3] is not None)
+        self.pieces.append(piece)
+
+    def close_lists(self, values: bool) -> None:
+        if not self.seqs:
+            return
+        counts = np.array(list(map(len, self.payloads)), dtype=np.int64) // self.itemsize
+        raw = np.frombuffer(b"".join(self.payloads), dtype=self.info.dtype) if values else None
+        self.pieces.append((np.asarray(self.seqs, dtype=np.int64),
+                            np.asarray(self.ticks, dtype=np.int64), counts, raw))
+        self.seqs, self.ticks, self.payloads = [], [], []
+
+
+class _Block:
+    """The arrays of the block being decoded that its pending stretches refer to."""
+
+    __slots__ = ("frames", "seq", "tick32", "tick_sum", "stream", "values_len", "u8", "misfits")
+
+    def __init__(self, frames: FrameBlock, seq: np.ndarray, tick32: np.ndarray,
+                 tick_sum: np.ndarray, stream: np.ndarray, values_len: np.ndarray,
+                 u8: np.ndarray) -> None:
+        self.frames = frames
+        self.seq = seq
+        self.tick32 = tick32
+        self.tick_sum = tick_sum  # running sum of the wrapped tick32 differences
+        self.stream = stream
+        self.values_len = values_len  # SAMPLES payload bytes after the fixed fields
+        self.u8 = u8  # frames.data as uint8
+        # per run: its item sizes, and the frames whose values do not fit them
+        self.misfits: dict[tuple[int, int], tuple[np.ndarray, list[int]]] = {}
+
+
+class Decoder:
+    _deframer_type = FastDeframer  # one per input and source (tests put the reference here)
+
+    def __init__(self, sink: Sink | None = None, flush_bytes: int = 0) -> None:
+        """flush_bytes: hand samples to the sink once this many bytes were fed
+        (0: after every feed). A live reader fed one notification at a time
+        sets it higher so the per-batch numpy work is shared by many frames."""
+        self.flush_bytes = flush_bytes
+        self._unflushed = 0
+        self.sink: Sink = sink if sink is not None else NullSink()
+        # A sink that keeps the NullSink's samples()/timing() wants neither: skip their work.
+        self._wants_samples = getattr(type(self.sink), "samples", None) is not NullSink.samples
+        self._wants_timing = getattr(type(self.sink), "timing", None) is not NullSink.timing
+        self._wants_frames = getattr(type(self.sink), "frame", None) is not NullSink.frame
+        self._pending: list[tuple[RunState, int, int, int]] = []  # stretches: run, first, end, shift
+        self._block: _Block | None = None
+        self._sizes: dict[tuple[int, int], np.ndarray] = {}  # per run: item size by stream id
+        self._batched: dict[tuple[int, int], set[int]] = {}  # per run: streams with a batch
+        self._described: dict[tuple[int, int], tuple[bytes, list[StreamInfo]]] = {}  # last entries
+        self.deframer = self._deframer_type()
+        self._deframers: dict[int, FastDeframer] = {0: self.deframer}
+        self.arrival = STREAM
+        self.counters = Counters()
+        self.runs: dict[tuple[int, int], RunState] = {}
+        self._batches: dict[tuple[int, int, int], _Batch] = {}
+        self._done: list[FastDeframer] = []  # deframers of inputs already read
+        self._damage_now = 0  # damaged segments seen before the frame being handled
+        self.notes: list[str] = []  # what the readers of the inputs had to skip
+
+    def new_input(self) -> None:
+        """The next bytes come from another file or link: never glue it to the last."""
+        for d in self._deframers.values():
+            d.close()
+            self._done.append(d)
+        self.deframer = self._deframer_type()
+        self._deframers = {0: self.deframer}
+
+    # ---- input ------------------------------------------------------------
+    def reset_source(self, source: int) -> None:
+        """A link restarted: bytes before and after must not be glued together."""
+        d = self._deframers.pop(source, None)
+        if d is not None:
+            d.close()
+            self._done.append(d)
+
+    def _take_input(self, data: bytes, arrival: Arrival) -> tuple[Any, int]:
+        """Count the bytes; -> the source's deframer and the damage other sources saw."""
+        self.counters.bytes += len(data)
+        deframer = self._deframers.get(arrival.source)
+        if deframer is None:
+            deframer = self._deframers[arrival.source] = self._deframer_type()
+        self.deframer = deframer
+        self.arrival = arrival
+        return deframer, sum(d.damaged for d in self._done) + sum(
+            d.damaged for d in self._deframers.values() if d is not deframer)
+
+    def feed(self, data: bytes, arrival: Arrival = STREAM) -> None:
+        deframer, base = self._take_input(data, arrival)
+        if len(data) >= BULK_BYTES:
+            for at in range(0, len(data), BLOCK_BYTES):
+                self._feed_block(deframer.feed_block(data[at : at + BLOCK_BYTES]), base)
+        else:
+            self._feed_frames(deframer, data, base)
+        self._unflushed += len(data)
+        if self._unflushed >= self.flush_bytes:
+            self._unflushed = 0
+            self._flush()
+
+    def _feed_frames(self, deframer: FastDeframer, data: bytes, base: int) -> None:
+        arrival = self.arrival
+        runs = self.runs
+        unpack = _SAMPLES_HEAD.unpack_from
+        frame_sink = self.sink.frame
+        timed = arrival.mono_ns >= 0 and self._wants_timing
+        origin = arrival.origin
+        batches = self._batches
+        for body, offset, damaged in deframer.feed(data):
+            damage = base + damaged
+            # Hot path: the next in-order SAMPLES frame of a described run, no
+            # damage since the last frame. Everything else takes _frame().
+            if body[0] == _VK_SAMPLES and len(body) > _SAMPLES_HEAD.size:
+                _, board, run_id, seq, stream, tick32 = unpack(body)
+                run = runs.get((board, run_id))
+                if (run is not None and seq == run.high_seq + 1 and run.damage_mark == damage
+                        and run.described and seq - run.ref_seq < run.hot_span):
+                    batch = batches.get((board, run_id, stream))
+                    if (batch is not None and batch.info is run.streams.get(stream)
+                            and not (len(body) - _SAMPLES_HEAD.size) % batch.itemsize):
+                        run.high_seq = seq
+                        run.received += 1
+                        frame_sink(run, seq, wire.SAMPLES, "received", offset, origin, arrival)
+                        d = (tick32 - run.ref_tick) & 0xFFFFFFFF
+                        tick = run.ref_tick + (d - 0x100000000 if d >= 0x80000000 else d)
+                        run.set_ref(seq, tick)
+                        if timed:
+                            self._time_samples(run, seq, tick, len(body), batch.info)
+                        batch.seqs.append(seq)
+                        batch.ticks.append(tick)
+                        batch.payloads.append(body[_SAMPLES_HEAD.size :])
+                        continue
+            self._damage_now = damage
+            self._frame(body, offset)
+
+    # ---- a block of frames -----------------------------------------------------
+    def _feed_block(self, frames: FrameBlock, base: int) -> None:
+        if frames.first is not None:
+            body, offset, damaged = frames.first
+            self._damage_now = base + damaged
+            self._frame(body, offset)
+        n = len(frames)
+        if not n:
+            return
+        u8 = np.frombuffer(frames.data, dtype=np.uint8)
+        cols = frames.starts[:, None] + _HEAD_COLS
+        np.minimum(cols, len(u8) - 1, out=cols)  # a frame shorter than the record: not SAMPLES
+        head = u8[cols].view(_HEAD)[:, 0]
+        seq = head["seq"].astype(np.int64)
+        board, run_id, stream = head["board"], head["run"], head["stream"]
+        dmg = frames.damaged
+        samples = (head["vk"] == _VK_SAMPLES) & (frames.lens > _SAMPLES_HEAD.size)
+        # frame i continues the stretch of frame i - 1: same run, next seq, no damage between
+        cont = (samples[1:] & samples[:-1] & (board[1:] == board[:-1])
+                & (run_id[1:] == run_id[:-1]) & (seq[1:] == seq[:-1] + 1) & (dmg[1:] == dmg[:-1]))
+        tick32 = head["tick32"].astype(np.int64)
+        step = np.zeros(n, dtype=np.int64)
+        np.subtract(tick32[1:], tick32[:-1], out=step[1:])
+        step &= 0xFFFFFFFF
+        step[step >= 0x80000000] -= 0x100000000  # the tick rule between neighbours
+        self._block = _Block(frames, seq, tick32, np.cumsum(step), stream,
+                             frames.lens - _SAMPLES_HEAD.size, u8)
+        cuts = (np.flatnonzero(~cont) + 1).tolist()
+        runs = self.runs
+        for i, j in zip([0, *cuts], [*cuts, n]):
+            while i < j:
+                if j - i >= _MIN_STRETCH:
+                    run = runs.get((int(board[i]), int(run_id[i])))
+                    k = i if run is None else self._stretch(run, i, j, base + int(dmg[i]))
+                    if k > i:
+                        i = k
+                        continue
+                self._damage_now = base + int(dmg[i])
+                self._frame(frames.body(i), int(frames.offsets[i]))
+                i += 1
+        if self._pending:
+            self._commit()
+        self._block = None
+
+    def _stretch(self, run: RunState, i: int, j: int, damage: int) -> int:
+        """Frames i..j-1 are in-order SAMPLES of `run`: account and unwrap as many
+        as _frame would take its hot path for, from i; return where they end."""
+        blk = self._block
+        assert blk is not None
+        seq0 = int(blk.seq[i])
+        if not (run.described and seq0 == run.high_seq + 1 and run.damage_mark == damage
+                and seq0 - run.ref_seq < run.hot_span and -_TICK_SAFE < run.ref_tick < _TICK_SAFE):
+            return i
+        # a stream the run does not describe, or values that do not fill whole items: stop there
+        known = blk.misfits.get(run.key)
+        misfits = known[1] if known is not None and known[0] is self._sizes.get(run.key) else (
+            self._misfits(run))
+        at = bisect.bisect_left(misfits, i)
+        k = min(j, misfits[at]) if at < len(misfits) else j
+        if k == i:
+            return i
+        shift = wire.unwrap_tick(int(blk.tick32[i]), run.ref_tick) - int(blk.tick_sum[i])
+        last = seq0 + k - i - 1
+        arrival = self.arrival
+        if self._wants_frames or (arrival.mono_ns >= 0 and self._wants_timing):
+            self._stretch_calls(run, i, k, seq0, shift, damage)
+        else:
+            run.high_seq = last
+            run.received += k - i
+            self._keep_refs(run, i, seq0, last, shift)
+            run.ref_seq, run.ref_tick = last, shift + int(blk.tick_sum[k - 1])
+        self._pending.append((run, i, k, shift))
+        return k
+
+    def _stretch_calls(self, run: RunState, i: int, k: int, seq0: int, shift: int,
+                       damage: int) -> None:
+        """A stretch for a sink that takes frame() or timing(): _frame's steps, in order."""
+        blk = self._block
+        assert blk is not None
+        arrival = self.arrival
+        origin = arrival.origin
+        timed = arrival.mono_ns >= 0 and self._wants_timing
+        frame_sink = self.sink.frame
+        offsets = blk.frames.offsets[i:k].tolist()
+        ticks = (blk.tick_sum[i:k] + shift).tolist()
+        streams = blk.stream[i:k].tolist()
+        sizes = blk.values_len[i:k].tolist()
+        for q in range(k - i):
+            seq, tick = seq0 + q, ticks[q]
+            run.high_seq = seq
+            run.damage_mark = damage
+            run.received += 1
+            frame_sink(run, seq, wire.SAMPLES, "received", offsets[q], origin, arrival)
+            run.set_ref(seq, tick)
+            if timed:
+                info = run.streams[streams[q]]
+                self.sink.timing(run, seq, wire.SAMPLES,
+                                 tick + (sizes[q] // info.dtype.itemsize - 1) * info.period_us,
+                                 arrival)
+
+    def _keep_refs(self, run: RunState, i: int, seq0: int, last: int, shift: int) -> None:
+        """RunState.set_ref's kept references for seqs seq0..last (frames i..)."""
+        blk = self._block
+        assert blk is not None
+        kept = run.kept_refs
+        half = (run.hot_span + 1) // 2  # set_ref keeps one when (seq - kept) * 2 >= hot_span
+        seq = seq0 if not kept else max(seq0, kept[-1][0] + half)
+        while seq <= last:
+            kept.append((seq, shift + int(blk.tick_sum[i + seq - seq0])))
+            seq += half
+
+    def _misfits(self, run: RunState) -> list[int]:
+        """The block's frames that, as SAMPLES of `run`, _samples would not decode."""
+        blk = self._block
+        assert blk is not None
+        sizes = self._item_sizes(run)
+        known = blk.misfits.get(run.key)
+        if known is None or known[0] is not sizes:
+            known = blk.misfits[run.key] = (
+                sizes, np.flatnonzero(blk.values_len % sizes[blk.stream]).tolist())
+        return known[1]
+
+    def _item_sizes(self, run: RunState) -> np.ndarray:
+        sizes = self._sizes.get(run.key)
+        if sizes is None:
+            sizes = np.full(256, _NO_STREAM, dtype=np.int64)
+            for sid, info in run.streams.items():
+                sizes[sid] = info.dtype.itemsize
+            self._sizes[run.key] = sizes
+        return sizes
+
+    def _commit(self) -> None:
+        """Hand the pending stretches' frames to their batches, in frame order."""
+        blk = self._block
+        assert blk is not None
+        pending, self._pending = self._pending, []
+        groups: dict[int, list[tuple[RunState, int, int, int]]] = {}
+        for item in pending:
+            groups.setdefault(id(item[0]), []).append(item)
+        if any(not self._batched.get(g[0][0].key, set()) >= g[0][0].streams.keys()
+               for g in groups.values()):
+            for run, i, k, _ in pending:
+                self._new_batches(run, i, k)
+        n = len(blk.seq)
+        for group in groups.values():
+            run = group[0][0]
+            taken = np.zeros(n, dtype=bool)
+            shift = np.zeros(n, dtype=np.int64)  # the tick of a stretch's first frame, less its sum
+            for _, i, k, first in group:
+                taken[i:k] = True
+                shift[i:k] = first
+            idx = np.flatnonzero(taken)
+            ticks = blk.tick_sum[idx] + shift[idx]
+            streams = blk.stream[idx]
+            for sid in np.flatnonzero(np.bincount(streams, minlength=256)).tolist():
+                sel = streams == sid
+                self._add_piece(run, sid, idx[sel], ticks[sel])
+
+    def _new_batches(self, run: RunState, i: int, k: int) -> None:
+        """Batches for the streams of frames i..k-1 that have none, in the order
+        _samples would make them (their first frames' order)."""
+        blk = self._block
+        assert blk is not None
+        if self._batched.get(run.key, set()) >= run.streams.keys():
+            return
+        sids, first = np.unique(blk.stream[i:k], return_index=True)
+        for sid in sids[np.argsort(first)].tolist():
+            self._batch_for(run, run.streams[sid])
+
+    def _add_piece(self, run: RunState, sid: int, idx: np.ndarray, ticks: np.ndarray) -> None:
+        blk = self._block
+        assert blk is not None
+        batch = self._batch_for(run, run.streams[sid])
+        sizes = blk.values_len[idx]
+        raw = None
+        if self._wants_samples:
+            frames = blk.frames
+            first = frames.starts[idx] + _SAMPLES_HEAD.size
+            size = int(sizes[0])
+            if (sizes == size).all():  # rows of one length: one gather through a window view
+                rows = np.ndarray((len(blk.u8) - size + 1, size), np.uint8, frames.data,
+                                  strides=(1, 1))
+                raw = rows[first].view(batch.info.dtype).reshape(-1)
+            else:
+                raw = np.frombuffer(b"".join(map(frames.data.__getitem__, map(
+                    slice, first.tolist(), (first + sizes).tolist()))), dtype=batch.info.dtype)
+        batch.add((blk.seq[idx], ticks, sizes // batch.itemsize, raw))
+
+    def _batch_for(self, run: RunState, info: StreamInfo) -> _Batch:
+        """The batch of info's stream; a stream described anew first hands over
+        what it holds (those values keep the description they came with)."""
+        key = (run.board, run.run, info.stream)
+        batch = self._batches.get(key)
+        if batch is None:
+            batch = self._batches[key] = _Batch(run, info)
+            self._batched.setdefault(run.key, set()).add(info.stream)
+        elif batch.info is not info:
+            if batch.info != info:
+                self._emit(batch)
+                batch.itemsize = info.dtype.itemsize
+            batch.info = info
+        return batch
+
+    def _time_samples(self, run: RunState, seq: int, tick: int, size: int,
+                      info: StreamInfo) -> None:
+        """The last sample's tick: the one nearest the moment the board sent the frame."""
+        n = (size - _SAMPLES_HEAD.size) // info.dtype.itemsize
+        self.sink.timing(run, seq, wire.SAMPLES, tick + (n - 1) * info.period_us, self.arrival)
+
+    def finish(self) -> None:
+        for d in self._deframers.values():
+            d.close()
+            self._done.append(d)
+        self._deframers = {}
+        for run in self.runs.values():
+            self._release_held(run, final=True)
+        self._flush()
+        for run in self.runs.values():
+            self._close_accounting(run)
+        c = self.counters
+        for d in self._done:
+            c.frames += d.frames
+            c.corrupt += d.corrupt
+            c.corrupt_bytes += d.corrupt_bytes
+            c.overlong += d.overlong
+            c.skipped_bytes += d.skipped
+
+    # ---- per frame ----------------------------------------------------------
+    def _frame(self, body: bytes, offset: int) -> None:
+        vk, board, run_id, seq = _HEADER.unpack_from(body)
+        version, kind = vk >> 4, vk & 0x0F
+        if version != wire.VERSION:
+            self.counters.bad_version += 1
+            self.counters.versions_seen.add(version)
+            return
+        if kind == wire.COMMAND:  # laptop -> board; not in the board's sequence space
+            self.counters.commands += 1
+            return
+        run = self.runs.get((board, run_id))
+        if run is None:
+            run = self.runs[(board, run_id)] = RunState(board, run_id)
+        fate, late = self._account(run, seq)
+        origin = self.arrival.origin
+        if late and origin == "radio":
+            origin = "resend"
+        self.sink.frame(run, seq, kind, fate, offset, origin, self.arrival)
+        if fate == "duplicate":
+            return
+        if kind not in wire.KIND_NAMES:
+            self.counters.unknown_kind += 1  # a newer sender's kind: skip, but it held a seq
+            return
+        if kind == wire.SAMPLES:
+            if self._ready(run, kind, seq, body):
+                self._samples(run, seq, body)
+            else:
+                self._hold(run, kind, seq, body, offset)
+            return
+        if kind == wire.EVENTS and not self._ready(run, kind, seq, body):
+            self._hold(run, kind, seq, body, offset)
+            return
+        self._typed(run, kind, seq, body, offset)
+        if kind in _ANCHOR_KINDS and run.held:
+            self._release_held(run)
+
+    @staticmethod
+    def _ready(run: RunState, kind: int, seq: int, body: bytes) -> bool:
+        """SAMPLES and EVENTS need the descriptor (for max_gap_ms) and an
+        unambiguous tick; SAMPLES also their stream's entry, unless the
+        descriptor is complete (then an unknown stream is undecodable)."""
+        if not run.described:
+            return False
+        if (kind == wire.SAMPLES and len(body) > wire.HEADER_SIZE
+                and body[wire.HEADER_SIZE] not in run.streams
+                and len(run.streams) + run.bad_streams < run.n_streams):
+            return False  # a later part of a split descriptor will name it
+        return run.tick_ok(seq)
+
+    def _account(self, run: RunState, seq: int) -> tuple[str, bool]:
+        """Sequence bookkeeping: (fate, whether the frame filled an earlier gap)."""
+        damage = self._damage_now
+        if run.high_seq < 0:
+            run.first_seq = run.high_seq = seq
+            if seq > 0:
+                run.gaps.append([0, seq - 1, 0])
+        elif seq > run.high_seq:
+            if seq > run.high_seq + 1:
+                run.gaps.append([run.high_seq + 1, seq - 1, damage - run.damage_mark])
+            run.high_seq = seq
+        elif not self._fill_gap(run, seq):
+            run.duplicates += 1
+            run.damage_mark = damage
+            return "duplicate", False
+        else:
+            run.damage_mark = damage
+            run.received += 1
+            return "received", True
+        run.damage_mark = damage
+        run.received += 1
+        return "received", False
+
+    @staticmethod
+    def _fill_gap(run: RunState, seq: int) -> bool:
+        for i, (first, last, corrupt) in enumerate(run.gaps):
+            if first <= seq <= last:
+                # The damaged segments stay with the first frames of the gap (SPEC).
+                head = min(corrupt, seq - first)
+                tail = min(corrupt - head, last - seq)
+                parts = [[first, seq - 1, head], [seq + 1, last, tail]]
+                run.gaps[i : i + 1] = [p for p in parts if p[0] <= p[1]]
+                return True
+        return False
+
+    def _samples(self, run: RunState, seq: int, body: bytes, forced: bool = False) -> None:
+        if len(body) <= _SAMPLES_HEAD.size:
+            self.counters.malformed += 1
+            return
+        _, _, _, _, stream, tick32 = _SAMPLES_HEAD.unpack_from(body)
+        info = run.streams.get(stream)
+        if info is None:
+            run.undecodable += 1
+            return
+        if (len(body) - _SAMPLES_HEAD.size) % info.dtype.itemsize:
+            self.counters.malformed += 1
+            return
+        ref = run.ref_for(seq)
+        tick = wire.unwrap_tick(tick32, run.ref_tick if ref is None else ref)
+        if seq > run.ref_seq and not forced:  # a sample frame is as good a reference as an anchor
+            run.set_ref(seq, tick)
+        if self.arrival.mono_ns >= 0 and not forced:
+            self._time_samples(run, seq, tick, len(body), info)
+        if self._pending:
+            self._commit()
+        batch = self._batch_for(run, info)
+        batch.seqs.append(seq)
+        batch.ticks.append(tick)
+        batch.payloads.append(body[_SAMPLES_HEAD.size :])
+
+    def _typed(self, run: RunState, kind: int, seq: int, body: bytes, offset: int,
+               forced: bool = False) -> None:
+        if kind == wire.SAMPLES:
+            self._samples(run, seq, body, forced)
+            return
+        if kind == wire.DESCRIPTOR:
+            self._descriptor(run, seq, body)
+            return
+        try:
+            f = parse_body(kind, body[wire.HEADER_SIZE :])
+        except MalformedFrame:
+            self.counters.malformed += 1
+            return
+        if kind == wire.EVENTS:
+            ref = run.ref_for(seq)
+            for ev in f["events"]:
+                tick = wire.unwrap_tick(ev["tick32"], run.ref_tick if ref is None else ref)
+                run.events += 1
+                self.sink.event(run, seq, tick, ev["code"], ev["value"])
+        elif kind == wire.STATUS:
+            self._anchor(run, seq, f["tick"], kind)
+            self.sink.status(run, seq, f)
+        elif kind == wire.END:
+            self._anchor(run, seq, f["tick"], kind)
+            run.end = f
+            self.sink.reply(run, seq, kind, f)
+        elif kind == wire.SYNC:
+            self._anchor(run, seq, f["tx_tick"], kind)
+            self.sink.reply(run, seq, kind, f)
+        else:  # ACK, ERROR, INFO
+            self.sink.reply(run, seq, kind, f)
+
+    def _anchor(self, run: RunState, seq: int, tick: int, kind: int) -> None:
+        if seq > run.ref_seq:
+            run.set_ref(seq, tick)
+        if self.arrival.mono_ns >= 0:
+            self.sink.timing(run, seq, kind, tick, self.arrival)
+
+    def _descriptor(self, run: RunState, seq: int, body: bytes) -> None:
+        fixed_end = wire.HEADER_SIZE + wire.DESCRIPTOR_FIXED_SIZE
+        entries = body[fixed_end:]
+        last = self._described.get(run.key)
+        if last is not None and last[0] == entries and len(body) >= fixed_end:
+            # the board repeats its descriptor: the entries were read (and checked) before
+            f = dict(zip(wire.DESCRIPTOR_FIELDS, _DESC_FIXED.unpack_from(body, wire.HEADER_SIZE)))
+        else:
+            try:
+                f = parse_body(wire.DESCRIPTOR, body[wire.HEADER_SIZE :])
+            except MalformedFrame:
+                self.counters.malformed += 1
+                return
+            if any(len(s["name"].encode()) > wire.MAX_TEXT or len(s["unit"].encode()) > wire.MAX_TEXT
+                   for s in f["streams"]):
+                self.counters.malformed += 1
+                return
+            last = None
+        self._anchor(run, seq, f["tick"], wire.DESCRIPTOR)
+        first = not run.described
+        run.tick_hz = f["tick_hz"]
+        run.fw = f"{f['fw_major']}.{f['fw_minor']}.{f['fw_patch']}"
+        run.set_max_gap(f["max_gap_ms"])
+        run.n_streams = f["n_streams"]
+        if last is not None:
+            infos = last[1]
+        else:
+            infos = []
+            for s in f["streams"]:
+                if s["type"] not in _DTYPES:  # a sample type this release cannot unpack
+                    if s["stream"] not in run.bad_stream_ids:
+                        run.bad_stream_ids.add(s["stream"])
+                        run.bad_streams += 1
+                    continue
+                # scale and offset travel as float32: read them as the shortest
+                # decimal that rounds to that float32 (0.001, not 0.0010000000475).
+                s["scale"] = float(str(np.float32(s["scale"])))
+                s["offset"] = float(str(np.float32(s["offset"])))
+                infos.append(StreamInfo(**s))
+            self._described[run.key] = (entries, infos)
+        if last is None:
+            if any(run.streams.get(info.stream) != info for info in infos):
+                if self._pending:  # stretches decoded under the old description go first
+                    self._commit()
+                self._sizes.pop(run.key, None)
+            for info in infos:
+                run.streams[info.stream] = info
+        run.described = True
+        if first:
+            self.sink.descriptor(run)
+
+    def _hold(self, run: RunState, kind: int, seq: int, body: bytes, offset: int) -> None:
+        run.held.append((kind, seq, body, offset, self.arrival))
+        if len(run.held) > MAX_HELD:
+            self._force(run, run.held.pop(0))
+
+    def _release_held(self, run: RunState, final: bool = False) -> None:
+        keep = []
+        for item in run.held:
+            if self._ready(run, item[0], item[1], item[2]):
+                self._typed_as(run, item)
+            elif final:
+                self._force(run, item)
+            else:
+                keep.append(item)
+        run.held = keep
+
+    def _typed_as(self, run: RunState, item: tuple[int, int, bytes, int, Arrival],
+                  forced: bool = False) -> None:
+        """Decode a held frame as it arrived (its own arrival time and source)."""
+        now = self.arrival
+        self.arrival = item[4]
+        try:
+            self._typed(run, item[0], item[1], item[2], item[3], forced)
+        finally:
+            self.arrival = now
+
+    def _force(self, run: RunState, item: tuple[int, int, bytes, int, Arrival]) -> None:
+        """Decode a frame whose tick cannot be proven unambiguous; count it."""
+        if run.ref_seq < 0 or (item[0] == wire.SAMPLES and not run.described):
+            run.undecodable += 1
+            return
+        run.ticks_uncertain += 1
+        self._typed_as(run, item, forced=True)
+
+    # ---- batches and closing ---------------------------------------------------
+    def _flush(self) -> None:
+        for batch in self._batches.values():
+            self._emit(batch)
+
+    def _emit(self, batch: _Batch) -> None:
+        """Hand a batch's samples to the sink, in pieces of about EMIT_SAMPLES."""
+        batch.close_lists(self._wants_samples)
+        pieces, batch.pieces = batch.pieces, []
+        if not self._wants_samples:  # count them, nothing more
+            batch.run.samples += sum(int(p[2].sum()) for p in pieces)
+            return
+        group: list[_Piece] = []
+        size = 0
+        for piece in pieces:  # small pieces together, large ones alone
+            assert piece[3] is not None
+            if group and size + piece[3].size > EMIT_SAMPLES // 2:
+                self._emit_group(batch, group)
+                group, size = [], 0
+            group.append(piece)
+            size += piece[3].size
+        if group:
+            self._emit_group(batch, group)
+
+    def _emit_group(self, batch: _Batch, pieces: list[_Piece]) -> None:
+        """One samples() call: one value, seq and tick per sample."""
+        info = batch.info
+        if len(pieces) == 1:
+            seqs, ticks, counts, raw = pieces[0]
+        else:
+            seqs, ticks, counts, raw = (np.concatenate(col) for col in zip(*pieces))
+        assert raw is not None
+        each = int(counts[0])
+        if (counts == each).all():  # frames of one length: a sample's place is its column
+            seq = np.repeat(seqs, each)
+            tick = (ticks[:, None] + np.arange(each, dtype=np.int64) * info.period_us).reshape(-1)
+        else:
+            seq = np.repeat(seqs, counts)
+            start = np.repeat(ticks, counts)
+            first_index = np.repeat(np.cumsum(counts) - counts, counts)
+            tick = start + (np.arange(raw.size, dtype=np.int64) - first_index) * info.period_us
+        batch.run.samples += int(raw.size)
+        self.sink.samples(batch.run, info, seq, tick, raw)
+
+    def _close_accounting(self, run: RunState) -> None:
+        for first, last, corrupt in run.gaps:
+            for i, seq in enumerate(range(first, last + 1)):
+                self.sink.frame(run, seq, -1, "corrupt" if i < corrupt else "missing", -1, "",
+                                STREAM)
+
+    # ---- summary -------------------------------------------------------------
+    def missing(self, run: RunState) -> int:
+        return sum(last - first + 1 for first, last, _ in run.gaps)
+
+    def corrupt_guess(self, run: RunState) -> int:
+        return sum(min(c, last - first + 1) for first, last, c in run.gaps)

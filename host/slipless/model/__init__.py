@@ -1,0 +1,1 @@
+"""The published formulas and the prediction of the induction voltage."""

@@ -1,0 +1,1 @@
+"""Pulsed-field runs reduced to per-condition contrasts and a fit."""

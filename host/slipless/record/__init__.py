@@ -1,0 +1,1 @@
+"""Recording a run over BLE: the recorder, board control, keys, and the laptop's links (transports/)."""

@@ -1,0 +1,1 @@
+"""The self-contained HTML run report and its figures."""
