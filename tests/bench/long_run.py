@@ -334,7 +334,7 @@ class _Generator:
         if what == "sync":
             k = job[1]
             t1_ns = int(math.floor(self.pings["t1"][k] * 1e9))
-            return enc.frame(enc.sync(k + 1, t1_ns, int(self.pings["t2"][k]),
+            return enc.frame(enc.sync((k + 1) & 0xFFFF, t1_ns, int(self.pings["t2"][k]),
                                       int(self.pings["t3"][k])))
         return enc.frame(enc.end(job[1], 2, [(s[0], n) for s, n in zip(self.streams, self.totals)]))
 

@@ -2,7 +2,7 @@
 mirror and the battery.
 
 Pure computation from a validated board config (firmware/config.py) and stated
-assumptions: no I/O, no printing. `slipless budget` (budget_cli.py) shows a
+assumptions: no I/O, no printing. `slipless budget` (cli/budget.py) shows a
 report; `slipless flash --dry-run` prints `summary_lines(config, profile)`.
 
 What the board sends follows the firmware exactly (board.py, sampler.py,

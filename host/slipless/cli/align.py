@@ -91,7 +91,7 @@ def print_models(result: Any, console: Console) -> None:
     console.print("skew: board clock rate over the laptop's, minus one (+ = board fast), overall "
                   "and per piece; offset: laptop monotonic minus board time at the first timed frame; "
                   "delay: one-way delay above the fit, median/95th percentile (the residual spread); "
-                  "±: bound on the mapped time's error over the run (clockmodel.py says how it is "
+                  "±: bound on the mapped time's error over the run (align/clockmodel.py says how it is "
                   "made); basis: time-sync exchanges and receive times, or receive times only")
     if any(c.model is not None and not c.model.kept for c in result.clocks.values()):
         notes.append("one-way only: without time-sync exchanges the laptop time includes the link's "

@@ -217,7 +217,7 @@ def _split_verdict(run: dict[str, Any], t: dict[str, int]) -> str:
     """When only the split between radio loss and board drops differs: say so.
     The board's counters say how many frames its queue dropped in each window
     between STATUS frames, not which ones; a frame the radio lost inside such
-    a window cannot be told from a dropped one (loss_drops.py)."""
+    a window cannot be told from a dropped one (loss/drops.py)."""
     if (run["frames_received"] == t["received"] and run["frames_recovered_resend"] == t["resent"]
             and run["frames_lost"] + run["frames_dropped_board"] == t["lost"] + t["dropped"]):
         return (f"received and resent match, lost + dropped match ({t['lost'] + t['dropped']:,}) "

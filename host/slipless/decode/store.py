@@ -103,7 +103,7 @@ class ChannelStore:
         if keep.size == order.size and np.array_equal(keep, np.arange(keep.size)):
             self.raw = raw  # already in order with nothing repeated: the common case
         else:
-            self.raw = _gather(raw, start[keep], count[keep])
+            self.raw = gather(raw, start[keep], count[keep])
         self.seg_start = np.cumsum(self.seg_count) - self.seg_count
 
     def _merge_by_sample(self, seq: np.ndarray, tick: np.ndarray, count: np.ndarray,
@@ -211,7 +211,7 @@ class ChannelStore:
         return self.seg_seq, self.seg_tick, self.seg_count
 
 
-def _gather(raw: np.ndarray, start: np.ndarray, count: np.ndarray) -> np.ndarray:
+def gather(raw: np.ndarray, start: np.ndarray, count: np.ndarray) -> np.ndarray:
     """raw[start[i] : start[i] + count[i]] for each i, joined, made in pieces."""
     out = np.empty(int(count.sum()), raw.dtype)
     at = 0

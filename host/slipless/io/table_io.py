@@ -17,7 +17,9 @@ partition columns. Each Parquet file carries the spec (units, kinds) as JSON
 in its key-value metadata, plus whatever the writer was given for that part.
 
 The formats live beside this module: table_csv.py (text built in bulk with
-numpy) and table_parquet.py (pyarrow, imported only when Parquet is asked for).
+numpy) and table_parquet.py (pyarrow, imported only when Parquet is asked for);
+table_files.py opens a writer or reader by format. This module holds what
+they share, so it imports neither.
 """
 
 from __future__ import annotations

@@ -13,7 +13,7 @@ Frames (one per sequence number 0 .. expected-1):
   bytes the laptop wrote: capture TX records, btsnoop writes).
 - recovered from the mirror: the first good copy came from a --mirror file.
 - dropped on the board: never obtained, and the board's own `dropped` counter
-  (STATUS frames) accounts for it (loss_drops.py says how).
+  (STATUS frames) accounts for it (loss/drops.py says how).
 - lost on the radio: never obtained, and not dropped on the board.
 
   expected = received + recovered (resend + mirror) + lost + dropped
@@ -28,7 +28,7 @@ where this run's frames were missing, at most one per missing frame, whether
 or not the frame was recovered later; duplicates = extra copies over the link;
 mirror copies of frames already held are counted apart.
 
-Samples, per stream (loss_streams.py): expected = END's per-stream total;
+Samples, per stream (loss/streams.py): expected = END's per-stream total;
 obtained samples take their frame's term; the samples missing from the
 stream's tick grid are lost or dropped in proportion to the frames never
 obtained around them. Seconds = samples x the stream's period.

@@ -28,6 +28,7 @@ import numpy as np
 
 from slipless.decode.decoder import ORIGINS, Arrival, Decoder, NullSink, RunState, StreamInfo
 from slipless.decode.deframe import FastDeframer
+from slipless.decode.store import gather
 from slipless.errors import InputError
 from slipless.io import capture
 from slipless.io.inputs import Source, check_decoded, classify_all, feed_all
@@ -279,23 +280,9 @@ class _RatePart:
             if in_place:
                 raw = self.raw[int(start[a]) : int(start[a]) + int(c.sum())]
             else:
-                raw = _gather(self.raw, start[a:b], c)
+                raw = gather(self.raw, start[a:b], c)
             yield self._ticks(tick0[a:b], c), self.values(raw, factor)
             a = b
-
-
-def _gather(raw: np.ndarray, start: np.ndarray, count: np.ndarray) -> np.ndarray:
-    """raw[start[i] : start[i] + count[i]] for each i, joined (index arrays made in pieces)."""
-    out = np.empty(int(count.sum()), raw.dtype)
-    at = 0
-    step = 4096  # runs per piece
-    for i in range(0, start.size, step):
-        st, ct = start[i : i + step], count[i : i + step]
-        first = np.repeat(np.cumsum(ct) - ct, ct)
-        idx = np.repeat(st, ct) + (np.arange(int(ct.sum()), dtype=np.int64) - first)
-        out[at : at + idx.size] = raw[idx]
-        at += idx.size
-    return out
 
 
 class RateStream:

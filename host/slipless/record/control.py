@@ -1,5 +1,5 @@
 """Talking to one board outside a run: connect, send commands, wait for their
-answers, hang up. Nothing here prints: control_cli.py formats what it returns.
+answers, hang up. Nothing here prints: cli/board.py formats what it returns.
 
 Every wait has a timeout and every failure is a BoardError whose message is
 one line saying what happened (cli.py prints it and exits 2).
