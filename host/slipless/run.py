@@ -345,10 +345,7 @@ def open_run(inputs: Sequence[Path | str] | Path | str, mirrors: Sequence[Path |
     if table_sink is not None:
         table_sink.close(list(dec.runs.values()), dec.missing, dec.corrupt_guess)
     check_decoded(dec, sources)
-    for ch in align.channels.values():
-        seal = getattr(ch, "seal", None)
-        if seal is not None:
-            seal()
+    align.seal()
     downs = ([d for src in sources if src.kind == "capture" for d in link_down(src.path)]
              if hold else [])
     anchors = [_anchor(src, i, align) for i, src in enumerate(sources)] if hold else []
