@@ -45,9 +45,11 @@ class RunSink(NullSink):
     per-frame fates as compact columns."""
 
     def __init__(self, loss: LossSink, align: AlignSink, tables: TableSink | None,
-                 hold: bool) -> None:
+                 hold: bool, keep_samples: bool = True) -> None:
         self.loss, self.align, self.tables = loss, align, tables
         self.sinks: list[Any] = ([loss, align] if hold else []) + ([tables] if tables else [])
+        # the sinks that take samples: without keep_samples the Run holds no channel stores
+        self.sample_sinks = [s for s in self.sinks if keep_samples or s is not align]
         self.hold = hold
         self.frames = Columns({"board": np.int32, "run": np.int32, "seq": np.int64,
                                "kind": np.int16, "fate": np.int8, "origin": np.int8,
@@ -61,7 +63,7 @@ class RunSink(NullSink):
 
     def samples(self, run: RunState, info: StreamInfo, seq: np.ndarray, tick: np.ndarray,
                 raw: np.ndarray) -> None:
-        for s in self.sinks:
+        for s in self.sample_sinks:
             s.samples(run, info, seq, tick, raw)
 
     def event(self, run: RunState, seq: int, tick: int, code: int, value: int) -> None:
@@ -311,13 +313,14 @@ def pulse_settings(**options: Any) -> tuple[Any, Any]:
 def open_run(inputs: Sequence[Path | str] | Path | str, mirrors: Sequence[Path | str] = (), *,
              tables: Path | str | None = None, table_format: str = "csv",
              angle_stream: str | None = None, progress: Any = None, hold: bool = True,
-             account_inputs: bool = False) -> Run:
+             keep_samples: bool = True, account_inputs: bool = False) -> Run:
     """Decode captures, btsnoop logs or raw streams (then the board's mirror
     files) once. progress: told of large inputs as they are read (an object
     with task(name, total) -> advance(n) and close(), as the command line's
     bar); tables: also write `slipless decode`'s tables into this
     folder in the same pass; hold=False keeps nothing but the decoder's
-    counts (for writing tables in constant memory); account_inputs: also
+    counts (for writing tables in constant memory); keep_samples=False keeps
+    no channel stores (the loss account needs none); account_inputs: also
     keep the loss facts of the inputs without the mirrors (Run.before_mirrors),
     taken from a copy of the decoder's state as the first mirror starts."""
     if isinstance(inputs, (str, Path)):
@@ -325,7 +328,7 @@ def open_run(inputs: Sequence[Path | str] | Path | str, mirrors: Sequence[Path |
     sources = classify_all([Path(p) for p in inputs], [Path(p) for p in mirrors])
     table_sink = None if tables is None else TableSink(Path(tables), table_format)
     align = AlignSink()
-    sink = RunSink(LossSink(angle_stream), align, table_sink, hold)
+    sink = RunSink(LossSink(angle_stream), align, table_sink, hold, keep_samples)
     dec = Decoder(sink)
     commands = CommandLog()
 

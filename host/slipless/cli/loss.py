@@ -63,7 +63,8 @@ def run_loss(args: argparse.Namespace, console: Console) -> int:
     from slipless.loss.report import document
     from slipless.run import open_run
 
-    facts = open_run(args.inputs, args.mirror, angle_stream=args.angle_stream).facts
+    facts = open_run(args.inputs, args.mirror, angle_stream=args.angle_stream,
+                     keep_samples=False).facts
     accounts = analyse(facts, args.angle_stream, args.index_marker, args.angle_bins, args.gmin)
     doc = document(accounts, facts, args.max_loss)
     if args.json:
