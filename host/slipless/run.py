@@ -290,24 +290,10 @@ def _join(parts: list[dict[str, np.ndarray]], names: Sequence[str]) -> dict[str,
 
 def pulse_settings(**options: Any) -> tuple[Any, Any]:
     """pulses.Settings and Options from keyword arguments named as the command's options."""
-    from slipless.cli.analysis_args import pulses_options
     from slipless.pulses.analysis import settings_from_args
+    from slipless.pulses.options import namespace
 
-    argv = ["unused", "--out", "unused"]
-    for name, value in options.items():
-        flag = "--" + name.replace("_", "-")
-        if value is True:
-            argv.append(flag)
-        elif isinstance(value, (list, tuple)):
-            for v in value:
-                argv += [flag, str(v)]
-        elif value is not None and value is not False:
-            argv += [flag, str(value)]
-    try:
-        args = pulses_options(argv)
-    except SystemExit as exc:  # argparse's verdict on a bad option
-        raise InputError(f"pulses options {options}: not understood") from exc
-    return settings_from_args(args)
+    return settings_from_args(namespace(**options))
 
 
 def open_run(inputs: Sequence[Path | str] | Path | str, mirrors: Sequence[Path | str] = (), *,

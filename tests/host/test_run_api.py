@@ -107,3 +107,15 @@ def test_bad_use_is_one_clear_error(decoded, tmp_path: Path) -> None:
         run.channel("no_such_stream")
     with pytest.raises(InputError, match="grid"):
         run.align(tmp_path / "x", grid="often")
+
+
+def test_pulse_defaults_are_the_commands() -> None:
+    """The Run and the report build the pulses options from pulses/options.py; the
+    command line declares them from there too, so the two cannot drift apart."""
+    from slipless.cli import build_parser
+    from slipless.pulses.options import DEFAULTS, namespace
+
+    args = vars(build_parser().parse_args(["pulses", "x.slcap", "--out", "y"]))
+    assert {k: args[k] for k in DEFAULTS} == DEFAULTS
+    with pytest.raises(InputError, match="no option"):
+        namespace(signall="cap_amp")

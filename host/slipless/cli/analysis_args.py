@@ -11,6 +11,7 @@ from pathlib import Path
 from typing import Any
 
 from slipless.decode.tables import FORMATS
+from slipless.pulses.options import DEFAULTS
 
 
 def add_parsers(sub: Any) -> None:
@@ -54,14 +55,14 @@ def _pulses(p: argparse.ArgumentParser) -> None:
                    help="the board's file mirror, merged after the inputs (repeatable)")
     p.add_argument("--format", choices=FORMATS, default="csv", help="table format (default csv)")
     ch = p.add_argument_group("channels")
-    ch.add_argument("--signal", default="cap_amp", metavar="NAME", help="amplifier stream")
-    ch.add_argument("--current", default="coil_current", metavar="NAME", help="coil current stream")
+    ch.add_argument("--signal", default=DEFAULTS["signal"], metavar="NAME", help="amplifier stream")
+    ch.add_argument("--current", default=DEFAULTS["current"], metavar="NAME", help="coil current stream")
     ch.add_argument("--rotation", metavar="NAME",
                     help="rotation-rate stream in rad/s (default gyro_z or rotation_rate)")
     ch.add_argument("--rotation-rate", action="append", metavar="[BOARD:RUN=]RATE",
                     help="rate for runs without a rotation stream, rad/s or e.g. 60rpm (repeatable)")
     pu = p.add_argument_group("pulses and windows (defaults from the coil's measured rise time)")
-    pu.add_argument("--pulses-from", choices=("auto", "events", "current"), default="auto",
+    pu.add_argument("--pulses-from", choices=("auto", "events", "current"), default=DEFAULTS["pulses_from"],
                     help="coil events or the current threshold (default: events if any)")
     pu.add_argument("--on-amps", type=float, help="current threshold: pulse starts above")
     pu.add_argument("--off-amps", type=float, help="current threshold: pulse ends below")
@@ -69,20 +70,13 @@ def _pulses(p: argparse.ArgumentParser) -> None:
     pu.add_argument("--baseline-ms", type=float, help="baseline before and after (default: fits the gap)")
     pu.add_argument("--plateau-ms", type=float, help="longest plateau used (default: all)")
     fit = p.add_argument_group("model")
-    fit.add_argument("--by", choices=("current", "sign"), default="current",
+    fit.add_argument("--by", choices=("current", "sign"), default=DEFAULTS["by"],
                      help="s in the fit: coil current in A (default) or field sign")
     fit.add_argument("--prediction", type=Path, metavar="FILE",
                      help="output of `slipless predict --json` to compare d with")
-    fit.add_argument("--level", type=float, default=0.95, help="confidence level (default 0.95)")
+    fit.add_argument("--level", type=float, default=DEFAULTS["level"], help="confidence level (default 0.95)")
     fit.add_argument("--stopped-below", type=float, metavar="RAD_S",
                      help="rates below this count as stopped (default 0.05)")
     p.add_argument("--no-plots", action="store_true", help="tables only")
     p.add_argument("--quiet", action="store_true", help="no report on the console")
 
-
-def pulses_options(argv: list[str]) -> argparse.Namespace:
-    """`slipless pulses` options parsed on their own (the report and the Python API take
-    the command's defaults from here): argv after the command name."""
-    parser = argparse.ArgumentParser(prog="slipless", add_help=False)
-    add_parsers(parser.add_subparsers(dest="command", required=True))
-    return parser.parse_args(["pulses", *argv])

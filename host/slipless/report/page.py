@@ -94,12 +94,10 @@ def _clock(d: ReportData, run: Any) -> None:
 
 
 def _pulses(d: ReportData, run: Any, prediction: Path | None) -> None:
-    from slipless.cli.analysis_args import pulses_options
     from slipless.pulses.analysis import analyse, settings_from_args
+    from slipless.pulses.options import namespace
 
-    argv = [*map(str, d.inputs), "--out", "unused"]
-    argv += ["--prediction", str(prediction)] if prediction is not None else []
-    st, opt = settings_from_args(pulses_options(argv))
+    st, opt = settings_from_args(namespace(prediction=prediction))
     d.channels = (st.signal, st.current)
     d.runs = run.pulse_runs()
     try:
