@@ -37,34 +37,30 @@ STOP_CAUTION = ("Caution: the board has switched the coil off, but the rotor may
 run_async: Callable[[Coroutine[Any, Any, int]], int] = asyncio.run
 
 
-def _seconds(text: str) -> float:
+def _number(text: str, kind: type, what: str, ok: Callable[[float], bool], limits: str) -> Any:
+    """An argparse type: `text` as `kind`, or one line saying what is wrong."""
     try:
-        v = float(text)
+        v = kind(text)
     except ValueError:
-        raise argparse.ArgumentTypeError(f"{text!r} is not a number of seconds") from None
-    if not 0 < v <= MAX_WAIT_S:
-        raise argparse.ArgumentTypeError(f"must be above 0 and at most {MAX_WAIT_S:g} s")
+        raise argparse.ArgumentTypeError(f"{text!r} is not {what}") from None
+    if not ok(v):
+        raise argparse.ArgumentTypeError(limits)
     return v
+
+
+def _seconds(text: str) -> float:
+    return _number(text, float, "a number of seconds", lambda v: 0 < v <= MAX_WAIT_S,
+                   f"must be above 0 and at most {MAX_WAIT_S:g} s")
 
 
 def _gap(text: str) -> float:
-    try:
-        v = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"{text!r} is not a number of seconds") from None
-    if not 0 <= v <= 60:
-        raise argparse.ArgumentTypeError("must be between 0 and 60 s")
-    return v
+    return _number(text, float, "a number of seconds", lambda v: 0 <= v <= 60,
+                   "must be between 0 and 60 s")
 
 
 def _count(text: str) -> int:
-    try:
-        v = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
-    if not 1 <= v <= MAX_PINGS:
-        raise argparse.ArgumentTypeError(f"must be between 1 and {MAX_PINGS}")
-    return v
+    return _number(text, int, "a whole number", lambda v: 1 <= v <= MAX_PINGS,
+                   f"must be between 1 and {MAX_PINGS}")
 
 
 def _add_backend(p: Any) -> None:
