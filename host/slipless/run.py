@@ -26,7 +26,7 @@ from typing import Any
 import numpy as np
 
 from slipless.align.collect import AlignSink, Collected, _anchor
-from slipless.decode.decoder import ORIGINS, Arrival, Decoder, NullSink, RunState, StreamInfo
+from slipless.decode.decoder import ORIGINS, Arrival, Decoder, NullSink, RunState, StreamInfo, expand_frames
 from slipless.decode.store import ChannelStore, Columns
 from slipless.decode.tables import TableSink
 from slipless.errors import InputError
@@ -65,6 +65,17 @@ class RunSink(NullSink):
                 raw: np.ndarray) -> None:
         for s in self.sample_sinks:
             s.samples(run, info, seq, tick, raw)
+
+    def sample_frames(self, run: RunState, info: StreamInfo, seqs: np.ndarray, ticks: np.ndarray,
+                      counts: np.ndarray, raw: np.ndarray) -> None:
+        rows = None  # per-sample seq and tick, made once for the sinks that take only those
+        for s in self.sample_sinks:
+            if hasattr(s, "sample_frames"):
+                s.sample_frames(run, info, seqs, ticks, counts, raw)
+                continue
+            if rows is None:
+                rows = expand_frames(info, seqs, ticks, counts)
+            s.samples(run, info, *rows, raw)
 
     def event(self, run: RunState, seq: int, tick: int, code: int, value: int) -> None:
         for s in self.sinks:

@@ -175,6 +175,20 @@ class SamplesOnly(NullSink):
         self.rows.add(run, info, seq, tick, raw)
 
 
+class FramesForm(SamplesOnly):
+    """Takes the samples in their frames' form (one seq, first tick and count a
+    frame), made into rows here frame by frame, as SPEC 4 places a frame's samples:
+    the reference decoder hands the same samples over as rows."""
+
+    def sample_frames(self, run: RunState, info: StreamInfo, seqs: np.ndarray,
+                      ticks: np.ndarray, counts: np.ndarray, raw: np.ndarray) -> None:
+        assert len(seqs) == len(ticks) == len(counts) and int(counts.sum()) == len(raw)
+        seq = [s for s, c in zip(seqs.tolist(), counts.tolist()) for _ in range(c)]
+        tick = [t + i * info.period_us for t, c in zip(ticks.tolist(), counts.tolist())
+                for i in range(c)]
+        self.rows.add(run, info, np.array(seq, np.int64), np.array(tick, np.int64), raw)
+
+
 class Counting(NullSink):
     """Takes nothing: the decoder only counts samples."""
 
@@ -359,7 +373,7 @@ def run_both(rng: random.Random, sink_type: type) -> None:
 
 
 @settings(max_examples=60, deadline=None)
-@given(st.integers(0, 2**32), st.sampled_from([Recorder, SamplesOnly, Counting]))
+@given(st.integers(0, 2**32), st.sampled_from([Recorder, SamplesOnly, FramesForm, Counting]))
 def test_block_path_equals_per_frame_reference(seed: int, sink_type: type) -> None:
     """Blocks and sample pieces small enough that short streams cross them often."""
     rng = random.Random(seed)
@@ -371,7 +385,7 @@ def test_block_path_equals_per_frame_reference(seed: int, sink_type: type) -> No
 
 
 @settings(max_examples=20, deadline=None)
-@given(st.integers(0, 2**32), st.sampled_from([Recorder, SamplesOnly]))
+@given(st.integers(0, 2**32), st.sampled_from([Recorder, SamplesOnly, FramesForm]))
 def test_default_sizes_equal_reference(seed: int, sink_type: type) -> None:
     """The shipped thresholds, on streams long enough for real blocks."""
     run_both(random.Random(seed), sink_type)

@@ -94,11 +94,18 @@ class AlignSink(NullSink):
 
     def samples(self, run: RunState, info: StreamInfo, seq: np.ndarray, tick: np.ndarray,
                 raw: np.ndarray) -> None:
+        self._channel(run, info).add(seq, tick, raw)
+
+    def _channel(self, run: RunState, info: StreamInfo) -> ChannelStore:
         key = (run.board, run.run, info.stream)
         ch = self.channels.get(key)
         if ch is None or (ch.info is not info and ch.info != info):
             ch = self.channels[key] = _described_anew(ch, info, run)
-        ch.add(seq, tick, raw)
+        return ch
+
+    def sample_frames(self, run: RunState, info: StreamInfo, seqs: np.ndarray, ticks: np.ndarray,
+                      counts: np.ndarray, raw: np.ndarray) -> None:
+        self._channel(run, info).add_frames(seqs, ticks, counts, raw)
 
     def seal(self) -> None:
         """Every channel sorted by tick with its repeats merged (after the last input)."""

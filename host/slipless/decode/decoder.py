@@ -45,7 +45,7 @@ BULK_BYTES = 16384  # chunks at least this long are decoded as a block (about 70
 # Blocks are cut to this size, and samples handed over in pieces of at most EMIT_SAMPLES,
 # so no temporary passes about a megabyte: malloc then reuses its memory instead of
 # giving it back and taking fresh pages (page faults cost as much as the decoding).
-BLOCK_BYTES = 256 << 10
+BLOCK_BYTES = 512 << 10
 EMIT_SAMPLES = 1 << 16
 _MIN_STRETCH = 4  # in-order SAMPLES frames taken together; shorter runs of them go frame by frame
 # The SAMPLES header as a numpy record (packed, 14 bytes), read for every frame of a block.
@@ -170,12 +170,30 @@ class Sink(Protocol):
     def descriptor(self, run: RunState) -> None: ...
     def samples(self, run: RunState, info: StreamInfo, seq: np.ndarray, tick: np.ndarray,
                 raw: np.ndarray) -> None: ...
+    # Optional: a sink that defines sample_frames(run, info, seqs, ticks, counts, raw)
+    # takes the samples in their frames' form instead (see expand_frames).
     def event(self, run: RunState, seq: int, tick: int, code: int, value: int) -> None: ...
     def status(self, run: RunState, seq: int, fields: dict[str, Any]) -> None: ...
     def reply(self, run: RunState, seq: int, kind: int, fields: dict[str, Any]) -> None: ...
     def frame(self, run: RunState, seq: int, kind: int, fate: str, offset: int, origin: str,
               arrival: Arrival) -> None: ...
     def timing(self, run: RunState, seq: int, kind: int, tick: int, arrival: Arrival) -> None: ...
+
+
+def expand_frames(info: StreamInfo, seqs: np.ndarray, ticks: np.ndarray,
+                  counts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Frames' form -> one seq and tick per sample. Frame k holds counts[k]
+    samples whose first has tick ticks[k]; they are info.period_us apart."""
+    each = int(counts[0]) if len(counts) else 0
+    if (counts == each).all():  # frames of one length: a sample's place is its column
+        seq = np.repeat(seqs, each)
+        tick = (ticks[:, None] + np.arange(each, dtype=np.int64) * info.period_us).reshape(-1)
+    else:
+        seq = np.repeat(seqs, counts)
+        start = np.repeat(ticks, counts)
+        first_index = np.repeat(np.cumsum(counts) - counts, counts)
+        tick = start + (np.arange(len(seq), dtype=np.int64) - first_index) * info.period_us
+    return seq, tick
 
 
 class NullSink:
@@ -287,7 +305,9 @@ class Decoder:
         self._unflushed = 0
         self.sink: Sink = sink if sink is not None else NullSink()
         # A sink that keeps the NullSink's samples()/timing() wants neither: skip their work.
-        self._wants_samples = getattr(type(self.sink), "samples", None) is not NullSink.samples
+        self._frames_form = getattr(self.sink, "sample_frames", None)
+        self._wants_samples = (self._frames_form is not None
+                               or getattr(type(self.sink), "samples", None) is not NullSink.samples)
         self._wants_timing = getattr(type(self.sink), "timing", None) is not NullSink.timing
         self._wants_frames = getattr(type(self.sink), "frame", None) is not NullSink.frame
         self._pending: list[tuple[RunState, int, int, int]] = []  # stretches: run, first, end, shift
@@ -864,24 +884,19 @@ class Decoder:
             self._emit_group(batch, group)
 
     def _emit_group(self, batch: _Batch, pieces: list[_Piece]) -> None:
-        """One samples() call: one value, seq and tick per sample."""
+        """One sample_frames() call (frames' form) or samples() call (per sample)."""
         info = batch.info
         if len(pieces) == 1:
             seqs, ticks, counts, raw = pieces[0]
         else:
             seqs, ticks, counts, raw = (np.concatenate(col) for col in zip(*pieces))
         assert raw is not None
-        each = int(counts[0])
-        if (counts == each).all():  # frames of one length: a sample's place is its column
-            seq = np.repeat(seqs, each)
-            tick = (ticks[:, None] + np.arange(each, dtype=np.int64) * info.period_us).reshape(-1)
-        else:
-            seq = np.repeat(seqs, counts)
-            start = np.repeat(ticks, counts)
-            first_index = np.repeat(np.cumsum(counts) - counts, counts)
-            tick = start + (np.arange(raw.size, dtype=np.int64) - first_index) * info.period_us
         batch.run.samples += int(raw.size)
-        self.sink.samples(batch.run, info, seq, tick, raw)
+        if self._frames_form is not None:
+            self._frames_form(batch.run, info, seqs, ticks, counts, raw)
+        else:
+            seq, tick = expand_frames(info, seqs, ticks, counts)
+            self.sink.samples(batch.run, info, seq, tick, raw)
 
     def _close_accounting(self, run: RunState) -> None:
         for first, last, corrupt in run.gaps:

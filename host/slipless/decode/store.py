@@ -26,6 +26,15 @@ PENDING = 1 << 16  # samples gathered from the decoder's calls before they are c
 CHUNK_SAMPLES = 1 << 20  # samples made at once by chunks(): about 30 MB of float64 and int64 columns
 
 
+def frames_of_samples(seq: np.ndarray, tick: np.ndarray, period: int
+                      ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Per-sample seq and tick -> segments (seq, first tick, count), cut at each
+    change of frame or break in the ticks: the inverse of decoder.expand_frames."""
+    seq, tick = np.asarray(seq, np.int64), np.asarray(tick, np.int64)
+    starts = np.r_[0, np.flatnonzero((seq[1:] != seq[:-1]) | (tick[1:] - tick[:-1] != period)) + 1]
+    return seq[starts], tick[starts], np.diff(np.r_[starts, seq.size])
+
+
 class ChannelStore:
     """Samples of one (board, run, stream) in decode order until seal(), then
     by tick with duplicates merged."""
@@ -34,7 +43,7 @@ class ChannelStore:
         self.info = info
         self.board, self.run = board, run
         self._parts: list[tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]] = []
-        self._pending: list[tuple[np.ndarray, np.ndarray, np.ndarray]] = []  # calls not yet cut
+        self._pending: list[tuple[np.ndarray, ...]] = []  # calls not yet joined
         self._pending_n = 0
         self.sealed = False
         self.seg_seq = np.zeros(0, np.int64)
@@ -49,32 +58,39 @@ class ChannelStore:
 
     # ---- filling ------------------------------------------------------------------
     def add(self, seq: np.ndarray, tick: np.ndarray, raw: np.ndarray) -> None:
-        """One samples() call of the decoder: a seq, tick and raw value per sample.
-        Calls (often one frame each) are gathered to PENDING samples before they are
-        cut into segments, so the per-part arrays do not outweigh the samples."""
-        if self.sealed:
-            raise RuntimeError("ChannelStore.add after seal")
+        """A seq, tick and raw value per sample (the decoder's samples() form):
+        cut into segments at each change of frame or break in the ticks."""
+        if raw.size == 0:
+            self._check_open()
+            return
+        self.add_frames(*frames_of_samples(seq, tick, self.period), raw)
+
+    def add_frames(self, seqs: np.ndarray, ticks: np.ndarray, counts: np.ndarray,
+                   raw: np.ndarray) -> None:
+        """The decoder's sample_frames() form: per frame its seq, first tick and
+        count, and the raw values of all of them. Calls (often one frame each)
+        are gathered to PENDING samples before they are joined, so the per-part
+        arrays do not outweigh the samples."""
+        self._check_open()
         if raw.size == 0:
             return
-        self._pending.append((np.array(seq, np.int64), np.array(tick, np.int64),
-                              np.array(raw, dtype=self.info.dtype)))
+        self._pending.append((np.array(seqs, np.int64), np.array(ticks, np.int64),
+                              np.array(counts, np.int64), np.array(raw, dtype=self.info.dtype)))
         self._pending_n += int(raw.size)
         if self._pending_n >= PENDING:
             self._cut()
+
+    def _check_open(self) -> None:
+        if self.sealed:
+            raise RuntimeError("ChannelStore.add after seal")
 
     def _cut(self) -> None:
         if not self._pending:
             return
         pend, self._pending, self._pending_n = self._pending, [], 0
-        if len(pend) == 1:
-            seq, tick, raw = pend[0]
-        else:
-            seq, tick, raw = (np.concatenate([p[i] for p in pend]) for i in range(3))
-        n = int(raw.size)
-        brk = np.flatnonzero((seq[1:] != seq[:-1]) | (tick[1:] - tick[:-1] != self.period)) + 1
-        starts = np.r_[0, brk]
-        counts = np.diff(np.r_[starts, n])
-        self._parts.append((seq[starts], tick[starts], counts.astype(np.int64), raw))
+        seq, tick, count, raw = pend[0] if len(pend) == 1 else (
+            np.concatenate([p[i] for p in pend]) for i in range(4))
+        self._parts.append((seq, tick, count, raw))
 
     def seal(self) -> None:
         """Sort by tick and merge duplicates; idempotent."""

@@ -26,7 +26,7 @@ from typing import Any, NamedTuple
 
 import numpy as np
 
-from slipless.decode.decoder import ORIGINS, Arrival, Decoder, NullSink, RunState, StreamInfo
+from slipless.decode.decoder import ORIGINS, Arrival, Decoder, NullSink, RunState, StreamInfo, expand_frames
 from slipless.decode.deframe import FastDeframer
 from slipless.decode.store import gather
 from slipless.errors import InputError
@@ -478,6 +478,16 @@ class LossSink(NullSink):
             if r is None:
                 r = f.rates[info.stream] = RateStream(info)
             r.add(info, tick, raw)
+
+    def sample_frames(self, run: RunState, info: StreamInfo, seqs: np.ndarray, ticks: np.ndarray,
+                      counts: np.ndarray, raw: np.ndarray) -> None:
+        b = self.facts_for(run).blocks.get(info.stream)
+        if (b is None or b.info is not info or b.wanted or len(seqs) < 2
+                or not bool(np.all(seqs[1:] > seqs[:-1]))):
+            # a rate stream's ticks, a new description or frames out of order: samples()
+            self.samples(run, info, *expand_frames(info, seqs, ticks, counts), raw)
+            return
+        b.extend(seqs, ticks, counts, ticks + (counts - 1) * info.period_us)
 
     def event(self, run: RunState, seq: int, tick: int, code: int, value: int) -> None:
         f = self.facts_for(run)

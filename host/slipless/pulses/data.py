@@ -17,7 +17,7 @@ from typing import Any
 import numpy as np
 
 from slipless.decode.decoder import Decoder, NullSink, RunState, StreamInfo
-from slipless.decode.store import CHUNK_SAMPLES, ChannelStore
+from slipless.decode.store import CHUNK_SAMPLES, ChannelStore, frames_of_samples
 from slipless.decode.tables import read_decoded
 from slipless.errors import InputError
 from slipless.io.inputs import Source, classify, feed_all
@@ -270,7 +270,7 @@ class ArraySink(NullSink):
         self._stores: dict[ChannelKey, list[ChannelStore]] = defaultdict(list)
         # calls gathered per stream before they go to its store: a store keeps a
         # few hundred bytes per call besides the samples
-        self._pending: dict[ChannelKey, list[tuple[np.ndarray, np.ndarray, np.ndarray]]] = \
+        self._pending: dict[ChannelKey, list[tuple[np.ndarray, ...]]] = \
             defaultdict(list)
         self._pending_n: dict[ChannelKey, int] = defaultdict(int)
         self._info: dict[ChannelKey, tuple[str, str]] = {}
@@ -279,6 +279,10 @@ class ArraySink(NullSink):
 
     def samples(self, run: RunState, info: StreamInfo, seq: np.ndarray, tick: np.ndarray,
                 raw: np.ndarray) -> None:
+        self.sample_frames(run, info, *frames_of_samples(seq, tick, info.period_us), raw)
+
+    def sample_frames(self, run: RunState, info: StreamInfo, seqs: np.ndarray, ticks: np.ndarray,
+                      counts: np.ndarray, raw: np.ndarray) -> None:
         key = (run.board, run.run, info.stream)
         self._info[key] = (info.name, info.unit)
         self._hz[run.key] = run.tick_hz
@@ -286,7 +290,7 @@ class ArraySink(NullSink):
         if not stores or _scaling(stores[-1].info) != _scaling(info):
             self._hand_over(key)
             stores.append(ChannelStore(info, run.board, run.run))
-        self._pending[key].append((seq, tick, raw))
+        self._pending[key].append((seqs, ticks, counts, raw))
         self._pending_n[key] += int(raw.size)
         if self._pending_n[key] >= GATHER_SAMPLES:
             self._hand_over(key)
@@ -295,7 +299,7 @@ class ArraySink(NullSink):
         parts = self._pending.pop(key, [])
         self._pending_n.pop(key, None)
         if parts:
-            self._stores[key][-1].add(*(np.concatenate(col) for col in zip(*parts)))
+            self._stores[key][-1].add_frames(*(np.concatenate(col) for col in zip(*parts)))
 
     def event(self, run: RunState, seq: int, tick: int, code: int, value: int) -> None:
         if code == wire.EV_COIL:
