@@ -26,7 +26,7 @@ from typing import Any
 import numpy as np
 
 from slipless.align.collect import AlignSink, Collected, _anchor
-from slipless.decode.decoder import ORIGINS, Arrival, Decoder, NullSink, RunState, StreamInfo, expand_frames
+from slipless.decode.decoder import ORIGINS, Arrival, Decoder, RunState, Tee
 from slipless.decode.store import ChannelStore, Columns
 from slipless.decode.tables import TableSink
 from slipless.errors import InputError
@@ -40,16 +40,16 @@ FATES = ("received", "duplicate", "missing", "corrupt")
 TABLES = ("samples", "events", "status", "frames", "timing", "streams")
 
 
-class RunSink(NullSink):
+class RunSink(Tee):
     """Hands every decoder call to the sinks the analyses read, and keeps the
     per-frame fates as compact columns."""
 
     def __init__(self, loss: LossSink, align: AlignSink, tables: TableSink | None,
                  hold: bool, keep_samples: bool = True) -> None:
         self.loss, self.align, self.tables = loss, align, tables
-        self.sinks: list[Any] = ([loss, align] if hold else []) + ([tables] if tables else [])
+        super().__init__(*([loss, align] if hold else []), *([tables] if tables else []))
         # the sinks that take samples: without keep_samples the Run holds no channel stores
-        self.sample_sinks = [s for s in self.sinks if keep_samples or s is not align]
+        self.sample_sinks = [s for s in self.sample_sinks if keep_samples or s is not align]
         self.hold = hold
         self.frames = Columns({"board": np.int32, "run": np.int32, "seq": np.int64,
                                "kind": np.int16, "fate": np.int8, "origin": np.int8,
@@ -57,50 +57,13 @@ class RunSink(NullSink):
         self._fate = {f: i for i, f in enumerate(FATES)}
         self._origin = {o: i for i, o in enumerate(ORIGINS)}
 
-    def descriptor(self, run: RunState) -> None:
-        for s in self.sinks:
-            s.descriptor(run)
-
-    def samples(self, run: RunState, info: StreamInfo, seq: np.ndarray, tick: np.ndarray,
-                raw: np.ndarray) -> None:
-        for s in self.sample_sinks:
-            s.samples(run, info, seq, tick, raw)
-
-    def sample_frames(self, run: RunState, info: StreamInfo, seqs: np.ndarray, ticks: np.ndarray,
-                      counts: np.ndarray, raw: np.ndarray) -> None:
-        rows = None  # per-sample seq and tick, made once for the sinks that take only those
-        for s in self.sample_sinks:
-            if hasattr(s, "sample_frames"):
-                s.sample_frames(run, info, seqs, ticks, counts, raw)
-                continue
-            if rows is None:
-                rows = expand_frames(info, seqs, ticks, counts)
-            s.samples(run, info, *rows, raw)
-
-    def event(self, run: RunState, seq: int, tick: int, code: int, value: int) -> None:
-        for s in self.sinks:
-            s.event(run, seq, tick, code, value)
-
-    def status(self, run: RunState, seq: int, fields: dict[str, Any]) -> None:
-        for s in self.sinks:
-            s.status(run, seq, fields)
-
-    def reply(self, run: RunState, seq: int, kind: int, fields: dict[str, Any]) -> None:
-        for s in self.sinks:
-            s.reply(run, seq, kind, fields)
-
     def frame(self, run: RunState, seq: int, kind: int, fate: str, offset: int, origin: str,
               arrival: Arrival) -> None:
-        for s in self.sinks:
-            s.frame(run, seq, kind, fate, offset, origin, arrival)
+        super().frame(run, seq, kind, fate, offset, origin, arrival)
         if self.hold:
             self.frames.append(run.board, run.run, seq, kind, self._fate.get(fate, -1),
                                self._origin.get(origin, -1), arrival.source if kind >= 0 else -1,
                                offset, arrival.wall_ns)
-
-    def timing(self, run: RunState, seq: int, kind: int, tick: int, arrival: Arrival) -> None:
-        for s in self.sinks:
-            s.timing(run, seq, kind, tick, arrival)
 
 
 @dataclass

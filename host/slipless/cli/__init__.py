@@ -84,6 +84,9 @@ def build_parser() -> argparse.ArgumentParser:
     from slipless.cli.board import add_parser as add_control_parser
 
     add_control_parser(sub)
+    from slipless.cli.watch import add_parser as add_watch_parser
+
+    add_watch_parser(sub)
     return p
 
 
@@ -100,6 +103,7 @@ COMMANDS = {
     "report": ("slipless.cli.report", "run_report"),
     "budget": ("slipless.cli.budget", "run_budget"),
     "board": ("slipless.cli.board", "run_board"),
+    "watch": ("slipless.cli.watch", "run_watch"),
 }
 
 

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import asyncio
+import contextlib
 import platform
 import signal
 import tempfile
@@ -15,6 +16,7 @@ from rich.console import Console
 from rich.live import Live
 from rich.text import Text
 
+from slipless.cli.watch import add_view_options, show, view_options
 from slipless.errors import InputError
 from slipless.io.capture import CaptureWriter
 from slipless.record.recorder import Progress, Recorder, RecordOptions
@@ -49,6 +51,10 @@ def add_parsers(sub: Any) -> None:
     r.add_argument("--sync-every", type=float, default=1.0, metavar="S",
                    help="flush and fsync the capture every S seconds (default 1)")
     _add_key_options(r)
+    r.add_argument("--watch", action="store_true",
+                   help="show the run live while it records: a page on 127.0.0.1 (or, with "
+                        "--watch-terminal, this terminal) with plots and alarms")
+    add_view_options(r, prefix="watch-")
 
     p = sub.add_parser("pull", help="copy the board's file mirror to the laptop (USB or BLE)")
     how = p.add_mutually_exclusive_group(required=True)
@@ -193,6 +199,8 @@ def run_record(args: argparse.Namespace, console: Console) -> int:
     if len(args.label.encode()) > 32:
         raise InputError("--label: at most 32 bytes")
     check_new_file(args.out, "capture")
+    if args.watch:
+        view_options(args, "watch-")  # its errors too come before any file is written
     signer = signer_for(args, console)  # before any file is written: no key, no capture
     if not args.no_start:
         console.print(RUN_CAUTION, style="bold")
@@ -222,14 +230,28 @@ async def _record(args: argparse.Namespace, console: Console, signer: Any = None
                          ping_every_s=args.ping_every, start=not args.no_start,
                          signer=signer)
     started = time.monotonic()
-    with Live(console=console, auto_refresh=False, transient=False) as live:
-        rec = Recorder(central, writer, opts,
-                       lambda p: live.update(status_line(p, started), refresh=True))
+    state = watch_state(args)
+    in_terminal = state is not None and args.watch_terminal  # the view replaces the status line
+    with contextlib.nullcontext() if in_terminal else Live(
+            console=console, auto_refresh=False, transient=False) as live:
+
+        def on_progress(p: Progress) -> None:
+            if live is not None:
+                live.update(status_line(p, started), refresh=True)
+            if state is not None:
+                state.link(p.state == "live", p.state, writer.clock.mono_ns(), p.link_error)
+
+        rec = Recorder(central, writer, opts, on_progress, watch=state)
         loop = asyncio.get_running_loop()
         loop.add_signal_handler(signal.SIGINT, rec.stop)  # Ctrl-C: STOP, drain, close
         never_connected = False
         try:
-            progress = await rec.run()
+            if state is None:
+                progress = await rec.run()
+            else:
+                job = asyncio.ensure_future(rec.run())
+                await show(state, writer.clock.mono_ns, args, console, job, prefix="watch-")
+                progress = job.result()
         except LinkError as exc:
             never_connected = rec.commands_sent == 0  # nothing heard or said: no recording
             raise InputError(str(exc) + (f" (no capture kept: {args.out} removed)"
@@ -251,6 +273,15 @@ async def _record(args: argparse.Namespace, console: Console, signer: Any = None
         console.print(f"the board no longer held frames {lost}: pull its mirror to recover them "
                       "(slipless pull), or they are lost")
     return 0
+
+
+def watch_state(args: argparse.Namespace) -> Any:
+    """The live view's state for --watch (None without it)."""
+    if not getattr(args, "watch", False):
+        return None
+    from slipless.live.state import LiveState
+
+    return LiveState(view_options(args, "watch-"), title=f"slipless record: {args.out.name}")
 
 
 def run_pull(args: argparse.Namespace, console: Console) -> int:

@@ -223,6 +223,58 @@ class NullSink:
         pass
 
 
+class Tee(NullSink):
+    """Every call to each of several sinks; samples in the frames' form to those
+    that take it, as rows (made once) to the others. (It defines every method,
+    so the decoder does all the work any of them might want.)"""
+
+    def __init__(self, *sinks: Any) -> None:
+        self.sinks = sinks
+        self.sample_sinks = [s for s in sinks if hasattr(s, "sample_frames")
+                             or getattr(type(s), "samples", None) is not NullSink.samples]
+
+    def descriptor(self, run: RunState) -> None:
+        for s in self.sinks:
+            s.descriptor(run)
+
+    def samples(self, run: RunState, info: StreamInfo, seq: np.ndarray, tick: np.ndarray,
+                raw: np.ndarray) -> None:
+        for s in self.sample_sinks:
+            s.samples(run, info, seq, tick, raw)
+
+    def sample_frames(self, run: RunState, info: StreamInfo, seqs: np.ndarray, ticks: np.ndarray,
+                      counts: np.ndarray, raw: np.ndarray) -> None:
+        rows = None
+        for s in self.sample_sinks:
+            if hasattr(s, "sample_frames"):
+                s.sample_frames(run, info, seqs, ticks, counts, raw)
+                continue
+            if rows is None:
+                rows = expand_frames(info, seqs, ticks, counts)
+            s.samples(run, info, *rows, raw)
+
+    def event(self, run: RunState, seq: int, tick: int, code: int, value: int) -> None:
+        for s in self.sinks:
+            s.event(run, seq, tick, code, value)
+
+    def status(self, run: RunState, seq: int, fields: dict[str, Any]) -> None:
+        for s in self.sinks:
+            s.status(run, seq, fields)
+
+    def reply(self, run: RunState, seq: int, kind: int, fields: dict[str, Any]) -> None:
+        for s in self.sinks:
+            s.reply(run, seq, kind, fields)
+
+    def frame(self, run: RunState, seq: int, kind: int, fate: str, offset: int, origin: str,
+              arrival: Arrival) -> None:
+        for s in self.sinks:
+            s.frame(run, seq, kind, fate, offset, origin, arrival)
+
+    def timing(self, run: RunState, seq: int, kind: int, tick: int, arrival: Arrival) -> None:
+        for s in self.sinks:
+            s.timing(run, seq, kind, tick, arrival)
+
+
 @dataclass
 class Counters:
     """Stream-level tallies (per-run ones live on RunState)."""

@@ -12,7 +12,7 @@ import json
 from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Protocol
+from typing import Any, BinaryIO, Protocol
 
 from slipless.decode.decoder import Arrival, Decoder
 from slipless.errors import InputError, ProtocolVersionError
@@ -97,32 +97,48 @@ def pieces(src: Source, on_progress: Callable[[int], None] | None = None) -> Ite
         raise InputError(f"{src.path}: unknown input kind {src.kind}")
 
 
-def _capture_pieces(src: Source, on_progress: Callable[[int], None] | None) -> Iterator[Piece]:
+def record_piece(rec: capture.Record) -> tuple[Piece | None, dict[str, Any] | None]:
+    """A capture record as a decoder feed piece ((None, arrival) marks a fresh
+    link), and its event's fields for an EVENT record (else None)."""
+    if rec.type == capture.RX:
+        return (rec.payload, Arrival(rec.source, rec.mono_ns, rec.wall_ns, "radio")), None
+    if rec.type == capture.TX:
+        return (rec.payload, Arrival(TX_SOURCE_BASE + rec.source, rec.mono_ns, rec.wall_ns,
+                                     "radio")), None
+    if rec.type != capture.EVENT:
+        return None, None
     try:
-        f, reader = capture.open_capture(src.path)
+        fields = json.loads(rec.payload)
+    except (ValueError, RecursionError):
+        return None, None
+    if not isinstance(fields, dict):
+        return None, None
+    if fields.get("event") in ("connected", "disconnected"):
+        return (None, Arrival(rec.source, rec.mono_ns, rec.wall_ns)), fields
+    return None, fields
+
+
+def open_capture_input(path: Path) -> tuple[BinaryIO, capture.CaptureReader]:
+    """capture.open_capture with its failures as one-line InputErrors."""
+    try:
+        return capture.open_capture(path)
     except capture.CaptureError as exc:
-        raise InputError(f"{src.path}: {exc}") from exc
+        raise InputError(f"{path}: {exc}") from exc
     except OSError as exc:
-        raise InputError(f"{src.path}: cannot read ({exc.strerror})") from exc
+        raise InputError(f"{path}: cannot read ({exc.strerror})") from exc
+
+
+def _capture_pieces(src: Source, on_progress: Callable[[int], None] | None) -> Iterator[Piece]:
+    f, reader = open_capture_input(src.path)
     with f:
         last = 0
         for rec in reader:
             if on_progress is not None:
                 on_progress(rec.offset - last)
                 last = rec.offset
-            if rec.type == capture.RX:
-                yield rec.payload, Arrival(rec.source, rec.mono_ns, rec.wall_ns, "radio")
-            elif rec.type == capture.TX:
-                yield rec.payload, Arrival(TX_SOURCE_BASE + rec.source, rec.mono_ns, rec.wall_ns,
-                                           "radio")
-            elif rec.type == capture.EVENT:
-                try:
-                    fields = json.loads(rec.payload)
-                except (ValueError, RecursionError):
-                    continue
-                event = fields.get("event") if isinstance(fields, dict) else None
-                if event in ("connected", "disconnected"):
-                    yield None, Arrival(rec.source, rec.mono_ns, rec.wall_ns)
+            piece, _ = record_piece(rec)
+            if piece is not None:
+                yield piece
         if on_progress is not None:
             on_progress(src.size - last)
     src.stats = reader.stats

@@ -15,12 +15,13 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
 
-from slipless.decode.decoder import Arrival, Decoder, NullSink, RunState
+from slipless.decode.decoder import Arrival, Decoder, NullSink, RunState, Tee
 from slipless.io.capture import RX, TX, CaptureWriter
 from slipless.protocol import wire
 from slipless.record.transports import Central, LinkError
 
 FEED_BYTES = 16384  # the live decoder takes notifications in batches of about this size
+WATCH_FLUSH_BYTES = 4096  # with a live view: samples handed over after about this many bytes
 
 # state -> the states it may move to
 STATES: dict[str, tuple[str, ...]] = {
@@ -98,14 +99,18 @@ class Progress:
 
 class Recorder:
     def __init__(self, central: Central, capture: CaptureWriter, opts: RecordOptions,
-                 on_progress: Callable[[Progress], None] | None = None) -> None:
+                 on_progress: Callable[[Progress], None] | None = None,
+                 watch: Any = None) -> None:
+        """watch: a further decoder sink that sees the run as it comes (the live view)."""
         self.central = central
         self.capture = capture
         self.opts = opts
         self.on_progress = on_progress
         self.clock = capture.clock  # the laptop's clocks (simulated ones in simulations)
         self.sink = _LiveSink()
-        self.decoder = Decoder(self.sink, flush_bytes=1 << 16)
+        # a watcher gets samples every few KB, so its plots move smoothly
+        self.decoder = (Decoder(self.sink, flush_bytes=1 << 16) if watch is None
+                        else Decoder(Tee(self.sink, watch), flush_bytes=WATCH_FLUSH_BYTES))
         self._pending: list[bytes] = []  # notifications not yet decoded (see _feed)
         self._pending_bytes = 0
         self._pending_at = (0, 0)
