@@ -10,6 +10,7 @@ from __future__ import annotations
 import asyncio
 import json
 from pathlib import Path
+from typing import Any
 
 from slipless.cli import decode_files
 from slipless.io import capture
@@ -33,7 +34,7 @@ SIM_STEP_US = 1000  # simulated time per board loop turn: the board runs faster 
 make_devices = ble_board.virtual_pair
 
 
-async def session(tmp: Path, cut_after_s: float, outage_s: float) -> dict:
+async def session(tmp: Path, cut_after_s: float, outage_s: float, watch: Any = None) -> dict:
     laptop_dev, board_dev = make_devices()
     await laptop_dev.power_on()
     await board_dev.power_on()
@@ -45,8 +46,17 @@ async def session(tmp: Path, cut_after_s: float, outage_s: float) -> dict:
     writer = capture.CaptureWriter(tmp / "run.slcap", {"backend": "bumble", "sources": [{}]},
                                    clock=virtual_time.LoopClock(0))
     central = BumbleCentral(laptop_dev, None, scan_s=5)
+    states: list[str] = []
+
+    def on_progress(p: Any) -> None:  # as `record --watch` tells the live view of the link
+        states.append(p.state)
+        if watch is not None:
+            watch.link(p.state == "live", p.state, writer.clock.mono_ns(), p.link_error)
+            watch.update(writer.clock.mono_ns())
+
     rec = Recorder(central, writer, RecordOptions(duration_s=4.0, ping_every_s=0.5,
-                                                  backoff_s=(outage_s,), drain_s=2.0))
+                                                  backoff_s=(outage_s,), drain_s=2.0),
+                   on_progress, watch=watch)
 
     async def cut() -> None:
         await asyncio.sleep(cut_after_s)
@@ -67,7 +77,7 @@ async def session(tmp: Path, cut_after_s: float, outage_s: float) -> dict:
     vb.close()
     (tmp / "mirror.bin").write_bytes(b"".join(produced))
     return {"progress": progress, "produced": produced, "refused": vb.bt.BLE().refused,
-            "commands": rec.commands_sent}
+            "commands": rec.commands_sent, "states": states}
 
 
 def test_record_with_cut_link_then_merge_mirror(tmp_path: Path) -> None:
@@ -138,3 +148,20 @@ def test_pull_mirror_over_the_link(tmp_path: Path, monkeypatch) -> None:
             assert got.samples == run.samples and pulled.missing(got) == 0
             # (replies sent after the pull began, like its own ACK, are not in the copy)
     assert pulled.counters.corrupt == 0
+
+
+def test_live_view_rides_along_a_recording(tmp_path: Path) -> None:
+    """`record --watch`: the live view is a second sink of the recorder's own
+    decoder; it counts what the recorder counts and raises link_down at the cut."""
+    from slipless.live.state import LiveState
+
+    state = LiveState()
+    out = virtual_time.run(session(tmp_path, cut_after_s=1.2, outage_s=0.6, watch=state))
+    prog = out["progress"]
+    snap = state.snapshot(state.last_arrival_ns)
+    assert snap["totals"]["frames"] == prog.frames and snap["totals"]["samples"] == prog.samples
+    assert "waiting" in out["states"]
+    history = {a["id"] for a in snap["alarms"]}
+    assert "link_down" in history  # raised at the cut, cleared on reconnecting
+    assert {s["name"] for s in snap["streams"]} == {"cap_amp", "coil_current"}
+    assert snap["clock"]["t_s"]  # pings answered: the clock offset is drawn

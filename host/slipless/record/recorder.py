@@ -94,7 +94,7 @@ class Progress:
     battery_mv: int = 0
     state: str = "idle"
     lost_ranges: list[tuple[int, int]] = field(default_factory=list)
-    link_error: str = ""  # why the last connection attempt failed (empty once connected)
+    link_error: str = ""  # why the link went or the last attempt failed (empty once connected)
 
 
 class Recorder:
@@ -136,6 +136,8 @@ class Recorder:
             raise RuntimeError(f"recorder cannot go from {self.state} to {new}")
         self.state = new
         self.progress.state = new
+        if self.on_progress is not None:  # (the live view learns of the link at once)
+            self.on_progress(self.progress)
 
     def stop(self) -> None:
         """Ask for a clean end (Ctrl-C, --duration): STOP, drain, close."""
@@ -163,6 +165,7 @@ class Recorder:
     def _on_disconnect(self, why: str) -> None:
         self._feed()  # what came before the drop belongs to the old connection
         self.capture.event(0, "disconnected", reason=why)
+        self.progress.link_error = f"disconnected ({why})" if why else "disconnected"
         self.decoder.reset_source(0)
         self._dropped.set()
 
