@@ -16,6 +16,8 @@ Prints one line per figure, then one JSON line with every figure:
   decode_csv_MBps, decode_parquet_MBps, decode_parquet_rss_MB   decode into tables (bench_tables.py)
   demo_seconds          wall time of `slipless demo` (bench_demo.py)
   demo_sim_seconds      its firmware + radio + recorder stage, 180 s simulated (bench_demo.py)
+  live_cpu_fraction     share of one core the live view takes at 8 streams x 2 kHz, real time
+                        (live_samples_per_s: what it took in; bench_live.py)
   run8h_*               seconds and peak RSS of each analysis command on an 8-hour run (bench_run8h.py)
 """
 
@@ -258,6 +260,9 @@ def main() -> int:
     from bench_fuzz import run as fuzz_figures  # >= 10 million corrupted frames
 
     figures.update(fuzz_figures())
+    from bench_live import live_figures  # the live view at 8 x 2 kHz, real time
+
+    figures.update(live_figures())
     from bench_run8h import run8h_figures  # every analysis command on an 8-hour run (BENCH_HOURS)
 
     figures.update(run8h_figures())

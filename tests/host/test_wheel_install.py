@@ -15,7 +15,7 @@ import pytest
 
 REPO = Path(__file__).resolve().parents[2]
 COMMANDS = ("decode", "demo", "flash", "record", "pull", "predict", "pulses", "loss", "align",
-            "report", "budget", "board")
+            "report", "budget", "board", "watch")
 
 
 def run(cmd: list[str], cwd: Path, timeout: float = 600) -> subprocess.CompletedProcess[str]:
@@ -100,3 +100,29 @@ def test_demo_and_every_analysis_from_the_wheel(installed: Path) -> None:
     cfg = installed / "rig-config.json"
     cfg.write_text((REPO / "firmware" / "config.example.json").read_text())
     run([exe, "budget", "--config", str(cfg), "--link", "fast"], installed)
+    out = run([exe, "watch", cap, "--speed", "0", "--exit-at-end", "--terminal"], installed).stdout
+    assert "played" in out and "cap_amp" in out
+
+
+LIVE_PAGE = """
+import asyncio, sys, urllib.request
+from slipless.live.server import WatchServer
+async def main():
+    server = WatchServer(lambda: {"v": 1})
+    url = await server.start()
+    loop = asyncio.get_running_loop()
+    for path in ("", "static/watch.js", "static/vendor/uplot/uPlot.iife.min.js", "snapshot.json"):
+        body = await loop.run_in_executor(None, lambda: urllib.request.urlopen(url + path).read())
+        print(path or "/", len(body))
+    await server.stop()
+asyncio.run(main())
+"""
+
+
+def test_live_page_is_served_from_the_wheel(installed: Path) -> None:
+    """The page, its script and the vendored uPlot are package data of the wheel."""
+    py = str(installed / "venv" / "bin" / "python")
+    sizes = dict(line.split() for line in run([py, "-c", LIVE_PAGE], installed).stdout.splitlines())
+    vendored = REPO / "host" / "slipless" / "live" / "static" / "vendor" / "uplot" / "uPlot.iife.min.js"
+    assert int(sizes["static/vendor/uplot/uPlot.iife.min.js"]) == vendored.stat().st_size
+    assert int(sizes["/"]) > 500 and int(sizes["static/watch.js"]) > 1000

@@ -75,7 +75,7 @@ async def show(state: LiveState, now_ns: Callable[[], int], args: argparse.Names
                console: Console, until: Awaitable[Any], prefix: str = "") -> None:
     """Serve the page (or draw the terminal view) until `until` is done; alarms
     raised are printed as lines either way."""
-    get: Callable[[str], Any] = lambda name: getattr(args, prefix.replace("-", "_") + name)  # noqa: E731
+    get: Callable[[str], Any] = lambda name: getattr(args, prefix.replace("-", "_") + name)
     task = asyncio.ensure_future(until)
     if get("terminal"):
         with Live(render(state.snapshot(now_ns())), console=console, auto_refresh=False) as live:

@@ -28,6 +28,7 @@ from slipless.protocol import wire
 Key = tuple[int, int]
 DEFAULT_TICK_HZ = 1_000_000
 CLOCK_FILTER = 8  # pings the clock offset is chosen from
+CLOCK_WARMUP = 4  # pings before the first offset is drawn
 
 
 @dataclass
@@ -441,6 +442,8 @@ class LiveState(NullSink):
         # the offset is good to half the round trip: of the last few pings the one
         # with the shortest round trip stands (a clock filter, common practice)
         self._pings = (self._pings + [(rtt, board_s - laptop_s)])[-CLOCK_FILTER:]
+        if len(self._pings) < CLOCK_WARMUP:
+            return  # too few to choose from yet
         rtt, offset = min(reversed(self._pings), key=lambda p: p[0])  # ties: the newest
         if self._clock0 is None:
             self._clock0 = offset
