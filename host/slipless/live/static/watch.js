@@ -311,7 +311,8 @@
     const ls = snap.loss_series || {};
     plot("loss", document.querySelector('[data-plot="loss"]'), () => options(
       [line("lost", INK.loss, {value: (u, v) => fixed(v, 2, "%")})], "%",
-      {scales: {x: {time: false}, y: {range: zeroBased}}}),
+      {scales: {x: {time: false}, y: {range: zeroBased}},
+       axes: [axis("watch time (s)"), axis("%")]}),
     columns([arr(ls.t_s), arr(ls.loss_pct)]));
   }
   function drawAngle(snap) {
@@ -343,7 +344,8 @@
   function drawClock(snap) {
     const c = snap.clock || {};
     plot("clock", document.querySelector('[data-plot="clock"]'), () => options(
-      [line("offset", INK.clock, {value: (u, v) => num(v, "ms")})], "ms"),
+      [line("offset", INK.clock, {value: (u, v) => num(v, "ms")})], "ms",
+      {axes: [axis("watch time (s)"), axis("ms")]}),
     columns([arr(c.t_s), arr(c.offset_ms)]));
   }
 
@@ -381,7 +383,7 @@
           line("temperature", INK.temp, {scale: "C", value: (u, v) => fixed(v, 1, "\u00b0C")}),
         ], "V", {
           scales: {x: {time: false}},
-          axes: [axis("run time (s)"), axis("V", {scale: "V"}),
+          axes: [axis("watch time (s)"), axis("V", {scale: "V"}),
                  axis("\u00b0C", {scale: "C", side: 1, grid: {show: false}})],
         }), columns([arr(b.t_s), arr(b.battery_series_v), arr(b.temp_series_c)]));
       });
