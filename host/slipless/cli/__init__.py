@@ -87,6 +87,9 @@ def build_parser() -> argparse.ArgumentParser:
     from slipless.cli.watch import add_parser as add_watch_parser
 
     add_watch_parser(sub)
+    from slipless.cli.calibrate import add_parser as add_calibrate_parser
+
+    add_calibrate_parser(sub)
     return p
 
 
@@ -104,6 +107,7 @@ COMMANDS = {
     "budget": ("slipless.cli.budget", "run_budget"),
     "board": ("slipless.cli.board", "run_board"),
     "watch": ("slipless.cli.watch", "run_watch"),
+    "calibrate": ("slipless.cli.calibrate", "run_calibrate"),
 }
 
 

@@ -46,6 +46,7 @@ class ChannelStore:
         self._pending: list[tuple[np.ndarray, ...]] = []  # calls not yet joined
         self._pending_n = 0
         self.sealed = False
+        self.calibrated = False  # calib.apply has changed info (once only)
         self.seg_seq = np.zeros(0, np.int64)
         self.seg_tick = np.zeros(0, np.int64)
         self.seg_count = np.zeros(0, np.int64)
