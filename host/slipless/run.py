@@ -79,6 +79,18 @@ class Run:
     anchors: list[int | None]
     before_mirrors: Facts | None = None  # the loss facts of the inputs alone (open_run's
     # account_inputs): what the radio delivered before the mirror filled it in
+    calibration: Any = None  # the calib.file.Calibration applied (calibrate())
+
+    def calibrate(self, cal: Any) -> list[str]:
+        """Apply a calibration (calib.file.Calibration, or a path to its file) to the
+        channels: align, pulses and the report then read corrected values, and
+        pulses adds its uncertainty to d's. Returns the streams calibrated."""
+        from slipless.calib import apply, file
+
+        if isinstance(cal, str | Path):
+            cal = file.load(Path(cal))
+        self.calibration = cal
+        return apply.apply(self.channels, cal)
 
     # ---- what was decoded -------------------------------------------------------------
     @property

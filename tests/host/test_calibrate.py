@@ -152,3 +152,24 @@ def test_calibrate_bad_requests(bench: Path, tmp_path: Path, args: list[str], sa
     assert main(["calibrate", str(bench), "--out", str(out), *args]) == 2
     err = capsys.readouterr().err
     assert says in err and err.count("\n") == 1 and not out.exists()
+
+
+def test_align_applies_the_calibration(tmp_path: Path) -> None:
+    """align --calibration: the aligned samples' values are the corrected ones."""
+    import csv
+
+    from slipless.sim.scenario import ScenarioConfig, build
+
+    sc = build(tmp_path, ScenarioConfig(seed=4, seconds=60))
+    cal = file.Calibration(streams={"cap_amp": file.StreamCal(offset=0.25, scale=2.0)}, board=None)
+    file.save(cal, tmp_path / "cal.json")
+    for name, extra in (("plain", []), ("cal", ["--calibration", str(tmp_path / "cal.json")])):
+        assert main(["align", str(sc.capture), "--grid", "100ms", "--out", str(tmp_path / name),
+                     "--quiet", *extra]) == 0
+    rows = {}
+    for name in ("plain", "cal"):
+        with (tmp_path / name / "samples.csv").open() as f:
+            rows[name] = [r for r in csv.DictReader(f) if r["name"] == "cap_amp"]
+    assert len(rows["plain"]) == len(rows["cal"]) > 1000
+    for a, b in zip(rows["plain"][:500], rows["cal"][:500]):
+        assert float(b["value"]) == pytest.approx((float(a["value"]) - 0.25) * 2.0, abs=1e-9)

@@ -41,6 +41,8 @@ def add_parser(sub: Any) -> None:
     a.add_argument("--format", choices=FORMATS, default="csv", help="table format (default csv)")
     a.add_argument("--json", action="store_true", help="print the clock model as JSON instead of a table")
     a.add_argument("--quiet", action="store_true", help="no progress bar or summary")
+    a.add_argument("--calibration", type=Path, metavar="FILE",
+                   help="a calibration from `slipless calibrate`: corrected values in the tables")
 
 
 def run_align(args: argparse.Namespace, console: Console) -> int:
@@ -49,7 +51,17 @@ def run_align(args: argparse.Namespace, console: Console) -> int:
     show = not (args.quiet or args.json)
     from slipless.cli.progress import bytes_progress
 
+    cal = None
+    if args.calibration is not None:
+        from slipless.calib.file import load
+
+        cal = load(args.calibration)  # a bad file fails before any decoding
     run = open_run(args.inputs, args.mirror, progress=bytes_progress(console if show else None))
+    if cal is not None:
+        done = run.calibrate(cal)
+        if show:
+            console.print(f"calibration {args.calibration.name}: "
+                          f"{', '.join(done) or 'no stream of these inputs'} corrected")
     result = run.align(args.out, args.grid, args.format, args.window / 1e9)
     if args.json:
         print(json.dumps(result.to_json(), indent=2))
