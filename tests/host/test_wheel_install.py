@@ -13,9 +13,10 @@ from pathlib import Path
 
 import pytest
 
+from slipless.cli import COMMANDS as CLI_COMMANDS
+
 REPO = Path(__file__).resolve().parents[2]
-COMMANDS = ("decode", "demo", "flash", "record", "pull", "predict", "pulses", "loss", "align",
-            "report", "budget", "board", "watch")
+COMMANDS = ("decode", *sorted(CLI_COMMANDS))  # every command the parser has
 
 
 def run(cmd: list[str], cwd: Path, timeout: float = 600) -> subprocess.CompletedProcess[str]:

@@ -33,6 +33,7 @@ from slipless.align.tables import Table
 from slipless.decode.store import CHUNK_SAMPLES, ChannelStore
 from slipless.decode.tables import SCHEMAS
 from slipless.errors import InputError
+from slipless.io.folders import out_folder
 from slipless.io.table_io import Coded, Const, TickSeconds
 from slipless.protocol import wire
 
@@ -94,7 +95,7 @@ def align_files(inputs: Sequence[Path], out: Path, fmt: str, period_ns: int, win
 def align_collected(col: Collected, out: Path, fmt: str, period_ns: int,
                     window_s: float) -> AlignResult:
     """Fit every run's clock and write the aligned tables, the grid and clock.json."""
-    out.mkdir(parents=True, exist_ok=True)
+    out_folder(out)
     extents = _extents(col)
     clocks = {key: fit_run(col, key, extents[key], window_s) for key in sorted(extents)}
     result = AlignResult(clocks, notes=list(col.decoder.notes))

@@ -31,7 +31,11 @@ class _Parser(argparse.ArgumentParser):
 
 
 def build_parser() -> argparse.ArgumentParser:
-    p = _Parser(prog="slipless", description="Rotor board telemetry: decode, tables, demo, flash.")
+    p = _Parser(prog="slipless", description=(
+        "Instruments on a rotor, by radio: flash and configure the board, record its runs over "
+        "Bluetooth LE (and watch them live), account every lost sample, put every channel and "
+        "board on one clock, reduce pulsed-field runs to contrasts with uncertainties, compare "
+        "them with the prediction. `slipless demo` runs it all on a simulated rig."))
     p.add_argument("--version", action="version", version=f"slipless {__version__}")
     sub = p.add_subparsers(dest="command", required=True, parser_class=_Parser)
 
@@ -112,7 +116,11 @@ COMMANDS = {
 
 
 def main(argv: Sequence[str] | None = None) -> int:
-    args = build_parser().parse_args(argv)
+    parser = build_parser()
+    if not (sys.argv[1:] if argv is None else argv):  # bare `slipless`: what it can do
+        parser.print_help()
+        return 0
+    args = parser.parse_args(argv)
     console = Console(width=None if sys.stdout.isatty() else 110)
     try:
         if args.command == "decode":

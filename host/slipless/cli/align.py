@@ -51,6 +51,9 @@ def run_align(args: argparse.Namespace, console: Console) -> int:
     show = not (args.quiet or args.json)
     from slipless.cli.progress import bytes_progress
 
+    from slipless.io.folders import out_folder
+
+    out_folder(args.out)  # before the decoding, not after it
     cal = None
     if args.calibration is not None:
         from slipless.calib.file import load

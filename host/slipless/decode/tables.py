@@ -17,6 +17,7 @@ from typing import Any
 import numpy as np
 
 from slipless.decode.decoder import Arrival, RunState, StreamInfo
+from slipless.io.folders import out_folder
 from slipless.io.table_files import find_table, open_table, read_columns
 from slipless.io.table_io import (
     FLOAT,
@@ -113,7 +114,7 @@ class TableSink:
 
     def __init__(self, out_dir: Path, fmt: str = "csv") -> None:
         check_format(fmt)
-        out_dir.mkdir(parents=True, exist_ok=True)
+        out_folder(out_dir)
         self._runs: dict[tuple[int, int], RunState] = {}
         self._background = Background()
         self._t = {name: open_table(out_dir, s, fmt, self._part_metadata, self._background)
