@@ -267,17 +267,22 @@ def write_grid(col: Collected, clocks: dict[Key, RunClock], out: Path, fmt: str,
     """The wide table: one column per board and stream on one grid."""
     to_time: dict[Key, Callable[[np.ndarray], Any]] = {
         k: c.utc_ns for k, c in clocks.items() if c.has_utc}
-    if not to_time and len(clocks) == 1:  # one board, no laptop time: its own clock still aligns it
-        (key, clock), = clocks.items()
-        hz = clock.tick_hz
-        to_time = {key: lambda t: np.rint(np.asarray(t) * (1e9 / hz)).astype(np.int64)}
+    # runs with samples (a board's idle boot run has none and needs no place on the grid)
+    sampled = {k[:2] for k, ch in col.sink.channels.items() if ch.n} & set(clocks)
+    boards = {b for b, _ in sampled}
+    rates = {clocks[k].tick_hz for k in sampled}
+    if not to_time and len(boards) == 1 and len(rates) == 1:
+        # one board, no laptop time: its own clock (ticks since boot) still aligns its runs
+        hz = rates.pop()
+        to_time = {key: lambda t: np.rint(np.asarray(t) * (1e9 / hz)).astype(np.int64)
+                   for key in sorted(sampled)}
         result.grid_clock = "board_time_ns"
         result.notes.append("no laptop time: the grid is on the board's own clock (board_time_ns)")
     elif not to_time:
         raise InputError("no input carries laptop receive times (raw streams or mirror files): "
                          "laptop time cannot be given, so several runs cannot share a grid; "
                          "align a capture (.slcap) or a btsnoop log")
-    left_out = sorted(k for k in clocks if k not in to_time)
+    left_out = sorted(k for k in clocks if k not in to_time and k in sampled)
     if left_out:
         result.notes.append("left out of the grid (no laptop time): " + ", ".join(
             f"board {b} run {r}" for b, r in left_out))
