@@ -14,8 +14,8 @@ from pathlib import Path
 from typing import NoReturn
 
 from rich.console import Console
-from rich.table import Table
 
+from slipless.cli.text_tables import column, print_table, table
 from slipless.decode.decoder import Decoder
 from slipless.decode.tables import FORMATS
 from slipless.errors import SliplessError
@@ -164,17 +164,17 @@ def cmd_decode(args: argparse.Namespace, console: Console) -> int:
 
 
 def print_summary(dec: Decoder, console: Console) -> None:
-    t = Table(title="decoded runs", title_justify="left")
+    t = table("decoded runs")
     for col in ("board", "run", "fw", "frames", "gaps", "missing", "corrupt", "dup", "samples",
                 "events", "end"):
-        t.add_column(col, justify="right")
+        column(t, col, left=col == "end")
     for r in sorted(dec.runs.values(), key=lambda r: r.key):
         corrupt = dec.corrupt_guess(r)
         end = wire.END_REASON_NAMES.get(r.end["reason"], "?") if r.end else "(none seen)"
         t.add_row(str(r.board), str(r.run), r.fw or "?", str(r.received), str(len(r.gaps)),
                   str(dec.missing(r) - corrupt), str(corrupt), str(r.duplicates), str(r.samples),
                   str(r.events), end)
-    console.print(t)
+    print_table(console, t)
     c = dec.counters
     console.print(
         f"bytes {c.bytes:,}  good frames {c.frames:,}  damaged segments {c.corrupt + c.overlong:,} "

@@ -11,10 +11,10 @@ from pathlib import Path
 from typing import Any
 
 from rich.console import Console
-from rich.table import Table
 
 from slipless.align.period import UNITS_NS as _UNITS_NS
 from slipless.align.period import parse_period
+from slipless.cli.text_tables import column, print_table, table
 
 
 def period_ns(text: str) -> int:
@@ -50,7 +50,6 @@ def run_align(args: argparse.Namespace, console: Console) -> int:
 
     show = not (args.quiet or args.json)
     from slipless.cli.progress import bytes_progress
-
     from slipless.io.folders import out_folder
 
     out_folder(args.out)  # before the decoding, not after it
@@ -86,10 +85,10 @@ def _fmt_period(ns: int) -> str:
 
 
 def print_models(result: Any, console: Console) -> None:
-    t = Table(title="clock model: board time -> laptop time", title_justify="left")
+    t = table("clock model: board time -> laptop time")
     for name in ("board", "run", "frames", "syncs", "skew ppm", "per piece", "offset s",
                  "delay ms", "± ms", "basis"):
-        t.add_column(name, justify="right")
+        column(t, name)
     notes = list(result.notes)
     for (b, r), c in sorted(result.clocks.items()):
         m = c.model
@@ -102,7 +101,7 @@ def print_models(result: Any, console: Console) -> None:
                   f"{ws.min():+.2f}..{ws.max():+.2f}" if ws.size > 1 else "-", f"{m.offset_s():.6f}",
                   f"{m.delay_p50_s * 1e3:.1f}/{m.delay_p95_s * 1e3:.1f}",
                   f"{m.uncertainty_s * 1e3:.3f}", "sync+rx" if m.kept else "rx only")
-    console.print(t)
+    print_table(console, t)
     console.print("skew: board clock rate over the laptop's, minus one (+ = board fast), overall "
                   "and per piece; offset: laptop monotonic minus board time at the first timed frame; "
                   "delay: one-way delay above the fit, median/95th percentile (the residual spread); "

@@ -9,6 +9,7 @@ from typing import Any
 from rich.console import Console
 from rich.table import Table
 
+from slipless.cli.text_tables import column, print_table, table
 from slipless.loss.account import TERMS, RunAccount
 
 _LABELS = {"received": "received", "recovered_resend": "resent", "recovered_mirror": "from mirror",
@@ -27,13 +28,13 @@ def _clock(wall_ns: int | None) -> str:
 
 
 def _accounting_table(a: RunAccount) -> Table:
-    t = Table(title=f"board {a.board} run {a.run}", title_justify="left")
-    t.add_column("", no_wrap=True)
-    t.add_column("frames", justify="right")
-    t.add_column("%", justify="right")
+    t = table(f"board {a.board} run {a.run}")
+    column(t, "", left=True)
+    column(t, "frames")
+    column(t, "%")
     for s in a.streams:
-        t.add_column(f"{s.name} samples", justify="right")
-        t.add_column("s", justify="right")
+        column(t, f"{s.name} samples")
+        column(t, "s")
     rows = [("expected", a.expected, {s.stream: s.expected for s in a.streams}, "expected")]
     rows += [(_LABELS[k], a.terms[k], {s.stream: s.samples[k] for s in a.streams}, k) for k in TERMS]
     for label, n, per, term in rows:
@@ -45,10 +46,10 @@ def _accounting_table(a: RunAccount) -> Table:
 
 
 def _gap_table(a: RunAccount) -> Table:
-    t = Table(title=f"gaps in what arrived live ({len(a.gaps)})", title_justify="left")
+    t = table(f"gaps in what arrived live ({len(a.gaps)})")
     for col in ("seq", "frames", "board s", "for s", "laptop", "resend", "mirror", "lost",
                 "dropped", "cause"):
-        t.add_column(col, justify="left" if col in ("seq", "cause", "laptop") else "right")
+        column(t, col, left=col in ("seq", "cause", "laptop"))
     for g in a.gaps[:MAX_GAP_ROWS]:
         start = f"{g.board_start_us / 1e6:.3f}" if g.board_start_us is not None else "-"
         span = (f"{(g.board_end_us - g.board_start_us) / 1e6:.3f}"
@@ -74,9 +75,9 @@ def _burst_lines(b: dict[str, Any]) -> list[str]:
 
 
 def _angle_table(angle: dict[str, Any]) -> Table:
-    t = Table(title=f"not received live, by rotor angle ({angle['source']})", title_justify="left")
+    t = table(f"not received live, by rotor angle ({angle['source']})")
     for col in ("degrees", "frames", "not live", "share", ""):
-        t.add_column(col, justify="right" if col not in ("", "degrees") else "left")
+        column(t, col, left=col in ("", "degrees"))
     top = max((b["loss_fraction"] for b in angle["bins"]), default=0.0) or 1.0
     for b in angle["bins"]:
         bar = "#" * round(20 * b["loss_fraction"] / top)
@@ -92,7 +93,7 @@ def print_report(accounts: Sequence[RunAccount], doc: dict[str, Any], console: C
                           f"{'s' if a.expected != 1 else ''} sent while no run was started "
                           "(status while idling; --json has its account)")
             continue
-        console.print(_accounting_table(a))
+        print_table(console, _accounting_table(a))
         extra = (f"side tallies: {a.corrupt} damaged on the link, {a.duplicates} duplicate copies, "
                  f"{a.out_of_order} out of order")
         if a.mirror_copies:
@@ -105,13 +106,13 @@ def print_report(accounts: Sequence[RunAccount], doc: dict[str, Any], console: C
         for n in a.notes:
             console.print(f"note: {n}")
         if a.gaps:
-            console.print(_gap_table(a))
+            print_table(console, _gap_table(a))
             if len(a.gaps) > MAX_GAP_ROWS:
                 console.print(f"... {len(a.gaps) - MAX_GAP_ROWS} more gaps (--json lists all)")
         for line in _burst_lines(a.burst):
             console.print(line)
         if a.angle:
-            console.print(_angle_table(a.angle))
+            print_table(console, _angle_table(a.angle))
     console.print(f"missing {doc['frames_missing']} of {doc['frames_expected']} frames "
                   f"({100 * doc['loss_fraction']:.3f} %), {doc['samples_missing']} of "
                   f"{doc['samples_expected']} samples; {doc['corrupt_segments']} damaged segments "
