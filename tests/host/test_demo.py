@@ -31,13 +31,13 @@ def test_demo_numbers(tmp_path: Path) -> None:
     assert ("radio: 78 notifications lost at the dead angle (200-236 deg), 1 elsewhere; "
             "1 reconnection; recorder: 58 pings, 157 frames asked for again") in text
     assert "coil: the board switched 25 times; its program matches the rig's plan within" in text
-    assert ("loss (radio only): 1,327 expected = 1,170 received + 129 resent + 0 from the mirror + "
-            "8 lost + 20 dropped on the board: closes") in text
-    assert ("against the simulation: received 1,170, resent 129, lost 8, dropped 20: every term "
-            "matches") in text
+    assert ("loss (radio only): 1,327 expected = 1,170 received + 129 recovered by resend + 0 "
+            "from the mirror + 8 lost + 20 dropped on the board: closes") in text
+    assert ("against the simulation: received 1,170, recovered by resend 129, lost 8, dropped 20: "
+            "every term matches") in text
     assert "gap causes found: board_overflow, disconnection, unknown" in text
-    assert ("loss (with the mirror): 1,327 expected = 1,170 received + 129 resent + 28 from the "
-            "mirror + 0 lost + 0 dropped on the board: closes") in text
+    assert ("loss (with the mirror): 1,327 expected = 1,170 received + 129 recovered by resend + "
+            "28 from the mirror + 0 lost + 0 dropped on the board: closes") in text
     m = re.search(r"worst angle \(integrated gyro\) (\d+) deg \(dead sector 200-236\)", text)
     assert m and 200 <= int(m.group(1)) <= 236  # the loss lands in the dead sector
     assert re.search(r"clock: skew \+\d+\.\d\d ppm \(simulated \+23\.00\); .* inside the bound", text)
@@ -136,15 +136,16 @@ def test_slow_link_demo_numbers(slow_demo: tuple[str, Path]) -> None:
         "connections): interval 50 ms, latency 0, supervision timeout 420 ms",
         "radio: 53 notifications lost at the dead angle (200-236 deg), 1 elsewhere; 1 reconnection; "
         "recorder: 59 pings, 1,177 frames asked for again",
-        "loss (radio only): 1,713 expected = 536 received + 421 resent + 0 from the mirror + 29 lost "
-        "+ 727 dropped on the board: closes",
-        "      against the simulation: received 536, resent 421, lost 40, dropped 716: received and "
-        "resent match, lost + dropped match (756) but not their split: radio losses inside the "
+        "loss (radio only): 1,713 expected = 536 received + 421 recovered by resend + 0 from the "
+        "mirror + 29 lost + 727 dropped on the board: closes",
+        "      against the simulation: received 536, recovered by resend 421, lost 40, dropped 716: "
+        "received and recovered by resend match, lost + dropped match (756) but not their split: "
+        "radio losses inside the "
         "queue's drop windows look like drops",
         "      the board built 27 more after the last frame the radio delivered (replies to the "
         "recorder's last requests as it hung up): only the mirror has them",
-        "loss (with the mirror): 1,740 expected = 536 received + 421 resent + 783 from the mirror + "
-        "0 lost + 0 dropped on the board: closes",
+        "loss (with the mirror): 1,740 expected = 536 received + 421 recovered by resend + 783 from "
+        "the mirror + 0 lost + 0 dropped on the board: closes",
         "      of the 1,129 frames the board's queue dropped, 393 came across when the recorder "
         "asked again; the mirror holds the other 736",
         "pulses: 12 found, 12 used",

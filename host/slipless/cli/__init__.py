@@ -165,8 +165,10 @@ def cmd_decode(args: argparse.Namespace, console: Console) -> int:
 
 def print_summary(dec: Decoder, console: Console) -> None:
     t = table("decoded runs")
-    for col in ("board", "run", "fw", "frames", "gaps", "missing", "corrupt", "dup", "samples",
-                "events", "end"):
+    # gaps left: what is still missing after resends and mirrors (loss counts the gaps
+    # in what arrived live, before they were filled)
+    for col in ("board", "run", "fw", "frames", "gaps left", "missing", "corrupt", "dup",
+                "samples", "events", "end"):
         column(t, col, left=col == "end")
     for r in sorted(dec.runs.values(), key=lambda r: r.key):
         corrupt = dec.corrupt_guess(r)

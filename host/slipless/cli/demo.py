@@ -183,7 +183,7 @@ def _loss_lines(sc: Scenario, out: Path, decoded: Run) -> list[str]:
         run = next(r for r in doc["runs"] if r["run"] == sc.run)
         lines.append(f"loss ({label}): {run['frames_expected']:,} expected = "
                      f"{run['frames_received']:,} received + {run['frames_recovered_resend']} "
-                     f"resent + {run['frames_recovered_mirror']} from the mirror + "
+                     f"recovered by resend + {run['frames_recovered_mirror']} from the mirror + "
                      f"{run['frames_lost']} lost + {run['frames_dropped_board']} dropped on the "
                      f"board: {'closes' if run['closes'] else 'DOES NOT CLOSE'} -> {out / name}.json")
         if not mirrors:
@@ -196,8 +196,8 @@ def _loss_lines(sc: Scenario, out: Path, decoded: Run) -> list[str]:
             verdict = "every term matches" if ok else _split_verdict(run, t)
             causes = sorted({g["cause"] for g in run["gaps"]})
             worst = (run.get("angle") or {}).get("worst_deg", float("nan"))
-            lines.append(f"      against the simulation: received {t['received']:,}, resent "
-                         f"{t['resent']}, lost {t['lost']}, dropped {t['dropped']}: "
+            lines.append(f"      against the simulation: received {t['received']:,}, "
+                         f"recovered by resend {t['resent']}, lost {t['lost']}, dropped {t['dropped']}: "
                          f"{verdict}; gap causes found: "
                          f"{', '.join(causes)}; worst angle (integrated gyro) {worst:.0f} deg "
                          f"(dead sector {sc.cfg.dead_from_deg:.0f}-{sc.cfg.dead_to_deg:.0f})")
@@ -220,9 +220,9 @@ def _split_verdict(run: dict[str, Any], t: dict[str, int]) -> str:
     a window cannot be told from a dropped one (loss/drops.py)."""
     if (run["frames_received"] == t["received"] and run["frames_recovered_resend"] == t["resent"]
             and run["frames_lost"] + run["frames_dropped_board"] == t["lost"] + t["dropped"]):
-        return (f"received and resent match, lost + dropped match ({t['lost'] + t['dropped']:,}) "
-                f"but not their split: radio losses inside the queue's drop windows look like "
-                f"drops")
+        return (f"received and recovered by resend match, lost + dropped match "
+                f"({t['lost'] + t['dropped']:,}) but not their split: radio losses inside the "
+                f"queue's drop windows look like drops")
     return "MISMATCH"
 
 

@@ -12,7 +12,8 @@ from rich.table import Table
 from slipless.cli.text_tables import column, print_table, table
 from slipless.loss.account import TERMS, RunAccount
 
-_LABELS = {"received": "received", "recovered_resend": "resent", "recovered_mirror": "from mirror",
+_LABELS = {"received": "received", "recovered_resend": "recovered by resend",
+           "recovered_mirror": "recovered from mirror",
            "lost": "lost (radio)", "dropped_board": "dropped (board)"}
 MAX_GAP_ROWS = 20  # terminal only; the JSON document lists every gap
 
@@ -22,9 +23,11 @@ def _pct(n: int, of: int) -> str:
 
 
 def _clock(wall_ns: int | None) -> str:
+    """The laptop's time of day in UTC, ISO 8601 with its zone (the date is in the
+    JSON document's laptop_start_ns)."""
     if wall_ns is None:
         return "-"
-    return dt.datetime.fromtimestamp(wall_ns / 1e9).strftime("%H:%M:%S.%f")[:-3]
+    return dt.datetime.fromtimestamp(wall_ns / 1e9, dt.UTC).strftime("%H:%M:%S.%f")[:-3] + "Z"
 
 
 def _accounting_table(a: RunAccount) -> Table:
@@ -47,9 +50,9 @@ def _accounting_table(a: RunAccount) -> Table:
 
 def _gap_table(a: RunAccount) -> Table:
     t = table(f"gaps in what arrived live ({len(a.gaps)})")
-    for col in ("seq", "frames", "board s", "for s", "laptop", "resend", "mirror", "lost",
-                "dropped", "cause"):
-        column(t, col, left=col in ("seq", "cause", "laptop"))
+    for col in ("seq", "frames", "board s", "for s", "laptop UTC", "by resend", "from mirror",
+                "lost", "dropped", "cause"):
+        column(t, col, left=col in ("seq", "cause", "laptop UTC"))
     for g in a.gaps[:MAX_GAP_ROWS]:
         start = f"{g.board_start_us / 1e6:.3f}" if g.board_start_us is not None else "-"
         span = (f"{(g.board_end_us - g.board_start_us) / 1e6:.3f}"

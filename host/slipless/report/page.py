@@ -143,8 +143,8 @@ def _completeness(d: ReportData) -> str:
         out.append("<p>Gaps in what arrived live, by likely cause: "
                    + ", ".join(f"{esc(k)} {v} frames" for k, v in sorted(causes.items()))
                    + ". The largest:</p>")
-        out.append(table(("frames (seq)", "count", "board s", "lasted s", "cause", "resent",
-                          "mirror", "lost", "dropped"),
+        out.append(table(("frames (seq)", "count", "board s", "lasted s", "cause", "by resend",
+                          "from mirror", "lost", "dropped"),
                          [(f"{g['first_seq']}-{g['last_seq']}", g["frames"],
                            (g["board_start_us"] or 0) / 1e6, g["duration_s"], g["cause"],
                            g["recovered_resend"], g["recovered_mirror"], g["lost"],
