@@ -126,6 +126,7 @@ def validate(given):
         t = _text(s, "type", w, 1)
         _need(t in TYPES, w + ".type", "must be one of " + TYPES)
         _num(s, "scale", w, -1e30, 1e30)
+        _need(s["scale"] != 0, w + ".scale", "must not be 0 (every value would read 0)")
         _num(s, "offset", w, -1e30, 1e30)
         _need(isinstance(s.get("state", False), bool), w + ".state", "must be true or false")
     coil = c["coil"]

@@ -148,7 +148,8 @@ def test_bad_config_json_from_the_real_entry_point(tmp_path):
     proc = subprocess.run([sys.executable, "-m", "slipless", "flash", "--port", "/dev/x", "--config",
                            str(bad)], capture_output=True, text=True, timeout=60)
     assert proc.returncode == 2
-    assert proc.stderr == f"slipless: error: {bad}: config: not valid JSON\n"
+    assert proc.stderr == (f"slipless: error: {bad}: not valid JSON: line 1 column 2: Expecting "
+                           "property name enclosed in double quotes\n")
 
 
 def test_compile_failure_is_a_clear_error(tmp_path):

@@ -100,3 +100,16 @@ def test_every_error_class_is_a_slipless_error() -> None:
                     and not issubclass(cls, SliplessError)):
                 outside.append(f"{cls.__module__}.{cls.__qualname__}")
     assert outside == []
+
+
+def test_every_package_folder_goes_into_the_wheel() -> None:
+    """A folder of the package missing from pyproject's list would be missing from
+    the wheel (the checkout's tests would still pass)."""
+    import tomllib
+
+    root = Path(__file__).resolve().parents[2]
+    listed = set(tomllib.loads((root / "pyproject.toml").read_text())["tool"]["setuptools"]["packages"])
+    base = root / "host" / "slipless"
+    found = {"slipless" + ("." + ".".join(p.parent.relative_to(base).parts) if p.parent != base else "")
+             for p in base.rglob("__init__.py")}
+    assert found <= listed, sorted(found - listed)

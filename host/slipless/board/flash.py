@@ -99,8 +99,10 @@ def load_profile(fw: Path, name: str) -> dict:
     return prof
 
 
-def parse_config_file(cfgmod, path: Path) -> tuple[str, dict]:
-    """-> (the file's text, the validated config), or InputError naming the file."""
+def parse_config_file(cfgmod, path: Path, flashing: bool = False) -> tuple[str, dict]:
+    """-> (the file's text, the validated config), or InputError naming the file.
+    flashing: also refuse what the board would take but a rig must not get by
+    default (no board_id, no streams)."""
     try:
         text = path.read_text(encoding="utf-8")
     except FileNotFoundError:
@@ -108,19 +110,35 @@ def parse_config_file(cfgmod, path: Path) -> tuple[str, dict]:
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError(f"{path}: cannot read config ({exc})") from None
     try:
-        return text, cfgmod.parse(text)
+        raw = json.loads(text)
+    except json.JSONDecodeError as exc:  # where it broke: the board's parser cannot say
+        raise InputError(f"{path}: not valid JSON: line {exc.lineno} column {exc.colno}: "
+                         f"{exc.msg}") from None
+    except RecursionError:
+        raise InputError(f"{path}: config: nested too deeply") from None
+    try:
+        config = cfgmod.parse(text)
     except cfgmod.ConfigError as exc:
         raise InputError(f"{path}: {exc}") from None
+    # What the board would accept (its defaults fill gaps) but a rig must not get by default:
+    if flashing and "board_id" not in raw:
+        raise InputError(f"{path}: config.board_id: missing: give each board its own id "
+                         "(1-65534), so two boards' runs and keys never mix")
+    if flashing and not config["streams"]:
+        raise InputError(f"{path}: config.streams: none: the board would record nothing")
+    return text, config
 
 
-def resolve_config(fw: Path, config_path: Path | None, board: str | None) -> tuple[dict, dict]:
-    """-> (validated config, profile), or InputError naming the file and field."""
+def resolve_config(fw: Path, config_path: Path | None, board: str | None,
+                   flashing: bool = False) -> tuple[dict, dict]:
+    """-> (validated config, profile), or InputError naming the file and field
+    (flashing: parse_config_file's stricter checks)."""
     cfgmod = load_board_config_module(fw)
     if config_path is None:
         config = cfgmod.validate({})
         given_profile = None
     else:
-        text, config = parse_config_file(cfgmod, config_path)
+        text, config = parse_config_file(cfgmod, config_path, flashing)
         raw = json.loads(text)  # parse() succeeded, so this is a JSON object
         given_profile = raw.get("profile")
     if board and given_profile and board != given_profile:

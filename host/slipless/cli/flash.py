@@ -76,7 +76,7 @@ def show_budget(config: dict, profile: dict, console: Console) -> None:
 
 def run_flash(args: argparse.Namespace, console: Console) -> int:
     fw = firmware_dir()
-    config, profile = resolve_config(fw, args.config, args.board)
+    config, profile = resolve_config(fw, args.config, args.board, flashing=True)
     ensure_key(config)  # the laptop keeps it only once the board verified it (keep_key)
     if not args.dry_run:
         if not args.port:
@@ -92,6 +92,7 @@ def run_flash(args: argparse.Namespace, console: Console) -> int:
                       "nothing copied)")
             show_budget(config, profile, console)
             return 0
+        show_budget(config, profile, console)  # its warnings (a mirror shorter than the run...)
         board = Board(args.port)
         remove = probe(board, plan, profile, fw, work, console.print)
         board.exec(_PREPARE % (remove,), "preparing the board")
