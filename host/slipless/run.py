@@ -175,14 +175,18 @@ class Run:
 
         if settings is None or options is None:
             settings, options = pulse_settings(**cli_options)
+        if options.calibration is not None:
+            self.calibrate(options.calibration)
         return analyse(self.pulse_runs(), settings, options)
 
     def report(self, out: Path | str, prediction: Path | str | None = None,
-               title: str = "slipless run report", subtitle: str = "") -> Path:
+               title: str = "slipless run report", subtitle: str = "",
+               calibration: Path | str | None = None) -> Path:
         """The self-contained HTML report; returns its path."""
         from slipless.report.page import collect, write
 
-        data = collect(self, None if prediction is None else Path(prediction))
+        data = collect(self, None if prediction is None else Path(prediction),
+                       None if calibration is None else Path(calibration))
         return Path(write(data, Path(out), title, subtitle))
 
     # ---- columns ----------------------------------------------------------------------

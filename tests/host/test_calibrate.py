@@ -173,3 +173,44 @@ def test_align_applies_the_calibration(tmp_path: Path) -> None:
     assert len(rows["plain"]) == len(rows["cal"]) > 1000
     for a, b in zip(rows["plain"][:500], rows["cal"][:500]):
         assert float(b["value"]) == pytest.approx((float(a["value"]) - 0.25) * 2.0, abs=1e-9)
+
+
+def test_pulses_carry_the_calibration_into_d_and_the_ratio(tmp_path: Path) -> None:
+    """A gyro reading 2 % low (scale 1.02) makes d 2 % smaller once corrected
+    (d is per rad/s); the calibration's scale errors join d's and d/model's
+    in quadrature (JCGM 100:2008 5.1.6)."""
+    from dataclasses import asdict
+
+    from slipless.sim.scenario import ScenarioConfig, build
+
+    sc = build(tmp_path, ScenarioConfig(seed=6, seconds=120))
+    pred = tmp_path / "prediction.json"
+    pred.write_text(json.dumps({"inputs": asdict(sc.rig.rig_inputs()),
+                                "results": sc.rig.prediction()}, default=float))
+    cal = file.Calibration(streams={"gyro_z": file.StreamCal(scale=1.02, scale_se=0.01),
+                                    "cap_amp": file.StreamCal(scale=1.0, scale_se=0.03)})
+    file.save(cal, tmp_path / "cal.json")
+    out = {}
+    for name, extra in (("plain", []), ("cal", ["--calibration", str(tmp_path / "cal.json")])):
+        assert main(["pulses", str(sc.capture), "--mirror", str(sc.mirror), "--out",
+                     str(tmp_path / name), "--prediction", str(pred), "--no-plots", "--quiet",
+                     *extra]) == 0
+        out[name] = json.loads((tmp_path / name / "summary.json").read_text())
+    d0, d1 = out["plain"]["fit"]["d"]["estimate"], out["cal"]["fit"]["d"]["estimate"]
+    assert d1 == pytest.approx(d0 / 1.02, rel=2e-3)
+    c = out["cal"]["calibration"]
+    rel = math.hypot(0.01 / 1.02, 0.03)
+    assert c["d_relative_se"]["total"] == pytest.approx(rel)
+    assert c["d_se"] == pytest.approx(math.hypot(c["d_se_fit"], abs(d1) * rel))
+    m0, m1 = out["plain"]["model"], out["cal"]["model"]
+    assert m1["ratio_se"] > m0["ratio_se"]
+    assert out["plain"]["calibration"] is None
+
+
+def test_pulses_refuse_a_calibration_for_decoded_folders(tmp_path: Path,
+                                                          capsys: pytest.CaptureFixture[str]) -> None:
+    file.save(file.Calibration(), tmp_path / "cal.json")
+    (tmp_path / "tables").mkdir()
+    code = main(["pulses", str(tmp_path / "tables"), "--out", str(tmp_path / "o"),
+                 "--calibration", str(tmp_path / "cal.json")])
+    assert code == 2 and "--calibration applies to captures" in capsys.readouterr().err

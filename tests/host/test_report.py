@@ -14,7 +14,7 @@ from slipless.report.page import collect, write
 from slipless.run import open_run
 from slipless.sim.scenario import ScenarioConfig, build
 
-SECTIONS = ("summary", "completeness", "clock", "traces", "conditions", "safety")
+SECTIONS = ("summary", "completeness", "clock", "traces", "conditions", "noise", "safety")
 
 
 @pytest.fixture(scope="module")

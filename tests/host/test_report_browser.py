@@ -24,7 +24,7 @@ CHROMIUM = Path("/usr/bin/chromium")
 FLAGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
          "--disable-background-networking", "--disable-component-update", "--disable-sync",
          "--hide-scrollbars"]
-SECTIONS = ("summary", "completeness", "clock", "traces", "conditions", "safety")
+SECTIONS = ("summary", "completeness", "clock", "traces", "conditions", "noise", "safety")
 # what Chromium shows instead of a page it could not load
 BROWSER_ERRORS = ("ERR_FILE_NOT_FOUND", "ERR_ACCESS_DENIED", "ERR_", "can’t be reached",
                   "couldn’t be accessed", "Traceback")

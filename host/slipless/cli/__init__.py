@@ -94,6 +94,9 @@ def build_parser() -> argparse.ArgumentParser:
     from slipless.cli.calibrate import add_parser as add_calibrate_parser
 
     add_calibrate_parser(sub)
+    from slipless.cli.noise import add_parser as add_noise_parser
+
+    add_noise_parser(sub)
     return p
 
 
@@ -112,6 +115,7 @@ COMMANDS = {
     "board": ("slipless.cli.board", "run_board"),
     "watch": ("slipless.cli.watch", "run_watch"),
     "calibrate": ("slipless.cli.calibrate", "run_calibrate"),
+    "noise": ("slipless.cli.noise", "run_noise"),
 }
 
 

@@ -25,13 +25,18 @@ def _predict(p: argparse.ArgumentParser) -> None:
     cap = p.add_argument_group("capacitor")
     cap.add_argument("--inner-mm", type=float, required=True, help="inner cylinder radius a")
     cap.add_argument("--outer-mm", type=float, required=True, help="outer cylinder radius b")
-    cap.add_argument("--cap-length-mm", type=float, help="cylinder length (for the capacitance)")
+    cap.add_argument("--cap-length-mm", type=float,
+                     help="cylinder length (capacitance; the field is averaged over it)")
+    cap.add_argument("--cap-offset-mm", type=float, default=0.0,
+                     help="the capacitor's middle from the coil's centre along the axis (default 0)")
     cap.add_argument("--eps-r", type=float, default=1.0, help="relative permittivity (default 1)")
     coil = p.add_argument_group("field: the coil, or a measured field")
     coil.add_argument("--turns", type=float)
     coil.add_argument("--coil-length-mm", type=float)
     coil.add_argument("--coil-radius-mm", type=float)
-    coil.add_argument("--field-mT", type=float, help="measured field on the axis at --amps")
+    coil.add_argument("--field-mT", type=float,
+                      help="measured field on the axis at the coil centre at --amps (a coil "
+                      "given too sets the profile over the capacitor)")
     coil.add_argument("--amps", type=float, required=True, help="coil current")
     coil.add_argument("--coil-ohms", type=float, help="coil resistance (heating, time constant)")
     coil.add_argument("--duty", type=float, default=0.5,
@@ -40,9 +45,13 @@ def _predict(p: argparse.ArgumentParser) -> None:
     rot.add_argument("--rpm", type=float, help="rotation rate (+ counter-clockwise seen from +z)")
     rot.add_argument("--rad-per-s", type=float, help="rotation rate in rad/s")
     amp = p.add_argument_group("amplifier and site")
-    amp.add_argument("--gain", type=float, default=1.0, help="amplifier voltage gain (default 1)")
+    amp.add_argument("--gain", type=float, default=1.0,
+                     help="voltage gain of the amplifier, or of any stage after a charge "
+                     "amplifier (default 1)")
     amp.add_argument("--input-pF", type=float, default=0.0,
-                     help="amplifier input capacitance incl. cables (default 0)")
+                     help="voltage amplifier: input capacitance incl. cables (default 0)")
+    amp.add_argument("--feedback-pF", type=float,
+                     help="a charge amplifier with this feedback capacitance: output C x EMF / Cf")
     amp.add_argument("--latitude-deg", type=float, help="for the Earth's rotation term")
     p.add_argument("--json", action="store_true", help="print JSON (for `slipless pulses --prediction`)")
 
@@ -77,6 +86,15 @@ def _pulses(p: argparse.ArgumentParser) -> None:
     fit.add_argument("--level", type=float, default=DEFAULTS["level"], help="confidence level (default 0.95)")
     fit.add_argument("--stopped-below", type=float, metavar="RAD_S",
                      help="rates below this count as stopped (default 0.05)")
+    fit.add_argument("--errors", choices=("pulse", "block"), default=DEFAULTS["errors"],
+                     help="interval errors: pulse-level HC2 (default) or block-level CR2, for "
+                          "an artifact that drifts; both with Bell-McCaffrey df")
+    fit.add_argument("--blocks", choices=("cycle", "run"), default=DEFAULTS["blocks"],
+                     help="a block: one complete cycle of the conditions in time order "
+                          "(default) or one run")
+    fit.add_argument("--calibration", type=Path, metavar="FILE",
+                     help="a calibration from `slipless calibrate`: streams corrected, its "
+                          "scale uncertainties added to d's and d/model's")
     p.add_argument("--no-plots", action="store_true", help="tables only")
     p.add_argument("--quiet", action="store_true", help="no report on the console")
 

@@ -21,10 +21,16 @@ def run_pulses(args: argparse.Namespace, console: Console) -> int:
     from slipless.run import open_run
 
     st, opt = settings_from_args(args)
+    if opt.calibration is not None and any(d.is_dir() for d in args.inputs):
+        raise InputError("--calibration applies to captures, raw streams and mirror files: a "
+                         "folder of decoded tables holds values already scaled")
     runs = [rd for d in args.inputs if d.is_dir() for rd in read_tables(d)]
     files = [p for p in args.inputs if not p.is_dir()]
     if files or args.mirror:
-        decoded = open_run(files, args.mirror).pulse_runs()
+        run = open_run(files, args.mirror)
+        if opt.calibration is not None:
+            run.calibrate(opt.calibration)
+        decoded = run.pulse_runs()
         if not decoded:
             names = ", ".join(str(p) for p in [*files, *args.mirror])
             raise InputError(f"{names}: no slipless frames found (not a capture, or wholly damaged)")

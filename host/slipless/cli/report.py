@@ -20,6 +20,8 @@ def add_parser(sub: Any) -> None:
     p.add_argument("--prediction", type=Path, metavar="FILE",
                    help="`slipless predict --json` output, for the contrast with the model")
     p.add_argument("--title", default="slipless run report")
+    p.add_argument("--calibration", type=Path, metavar="FILE",
+                   help="a calibration from `slipless calibrate`: streams corrected first")
 
 
 def run_report(args: argparse.Namespace, console: Console) -> int:
@@ -27,7 +29,11 @@ def run_report(args: argparse.Namespace, console: Console) -> int:
     from slipless.report.page import collect, write
     from slipless.run import open_run
 
-    data = collect(open_run(args.inputs, args.mirror), args.prediction)
+    if args.calibration is not None:
+        from slipless.calib.file import load
+
+        load(args.calibration)  # a bad file fails before any decoding
+    data = collect(open_run(args.inputs, args.mirror), args.prediction, args.calibration)
     write(data, args.out, args.title)
     console.print(f"report written to {args.out}")
     return 0

@@ -5,7 +5,10 @@ each pulse to a response (pulses_reduce), label by field sign and rotation
 (pulses_group), fit response = a + b*s + c*w + d*s*w (pulses_fit), then write
 tables and plots (pulses_report, pulses_plots). The field x rotation term d
 is the induction signal; b (flips with the field, not with rotation) is the
-artifact; stopped runs are the control.
+artifact; stopped runs are the control. Errors are pulse-level (HC2-BM) or,
+with errors="block", block-level (CR2-BM over complete cycles of the
+conditions, or over runs); both are computed when there are blocks, and a
+check says when the block-level error is the larger.
 """
 
 from __future__ import annotations
@@ -25,14 +28,19 @@ from slipless.errors import InputError
 from slipless.model.physics import rpm_to_rad_s
 from slipless.pulses.data import RunData
 from slipless.pulses.fit import (
+    SE_KIND,
     Fit,
     Ratio,
     Test,
     against_prediction,
+    block_errors,
+    block_excess,
     equal_slopes,
     factorial,
     linear_slopes,
     slope,
+    t_test,
+    two_sided_p,
 )
 from slipless.pulses.group import (
     STOPPED_BELOW_RAD_S,
@@ -41,9 +49,21 @@ from slipless.pulses.group import (
     mean_se,
     rotation_groups,
 )
-from slipless.pulses.reduce import PulseResult, RunPlan, Settings, plan_run, reduce_run, waveform_grid
+from slipless.pulses.reduce import (
+    ROTATION_NAMES,
+    PulseResult,
+    RunPlan,
+    Settings,
+    plan_run,
+    reduce_run,
+    waveform_grid,
+)
 
 SCATTER_P = 1e-3  # pulse-to-pulse scatter beyond the within-pulse noise at this p is flagged
+ARTIFACT_P = 0.01  # a segment's field slope off the induction term at this p is flagged
+# [common practice: 1 % for a flag raised on every segment of every run]
+ERRORS = ("pulse", "block")
+BLOCKS = ("cycle", "run")
 
 
 @dataclass
@@ -53,6 +73,11 @@ class Options:
     stopped_below: float = STOPPED_BELOW_RAD_S
     slope_model: float | None = None  # predicted V per (A rad/s), from `slipless predict --json`
     field_t_per_a: float | None = None
+    errors: str = "pulse"  # or "block": intervals and tests from the block-level errors
+    blocks: str = "cycle"  # a block: one complete cycle of the conditions, or one run
+    calibration: Any = None  # calib.file.Calibration: its scale errors join d's (and d/model's)
+    calibrated: tuple[str, str | None] = ("cap_amp", None)  # its signal and rate streams
+    assumed_v_per_c: float | None = None  # the prediction's amplifier gain, V per C at its input
 
 
 @dataclass
@@ -91,6 +116,9 @@ class Analysis:
     segments: list[dict[str, Any]] = field(default_factory=list)
     runs: list[dict[str, Any]] = field(default_factory=list)
     checks: list[Test] = field(default_factory=list)
+    blocks: np.ndarray | None = None  # block number per used pulse
+    block_note: str = ""  # why there are no block-level errors
+    calibration: dict[str, Any] | None = None  # d's error with the calibration's added
 
     @property
     def s_unit(self) -> str:
@@ -102,7 +130,14 @@ class Analysis:
                 "d": f"V/({'A ' if per_s else ''}rad/s)"}[term]
 
 
+def _check_choices(errors: str, blocks: str) -> None:
+    if errors not in ERRORS or blocks not in BLOCKS:
+        raise InputError(f"--errors is one of {', '.join(ERRORS)}; --blocks one of "
+                         f"{', '.join(BLOCKS)}")
+
+
 def analyse(runs: list[RunData], st: Settings, opt: Options) -> Analysis:
+    _check_choices(opt.errors, opt.blocks)
     plans = [p for p in (plan_run(rd, st) for rd in runs) if p is not None]
     if not plans:
         raise InputError("no coil pulses found in any run (check --current, --pulses-from, "
@@ -121,10 +156,61 @@ def analyse(runs: list[RunData], st: Settings, opt: Options) -> Analysis:
     groups = rotation_groups(w, opt.stopped_below)
     fit = factorial(s, w, y)
     a = Analysis(pulses, plans, grid, opt, s, w, y, used, groups, _conditions(used, groups), fit)
+    _block_errors(a)
     _compare(a)
     _by_rotation(a)
+    excess = block_excess(fit)
+    if excess is not None:
+        a.checks.append(excess)
     _segments(a)
     return a
+
+
+def block_numbers(a: Analysis, how: str) -> np.ndarray:
+    """Block of each used pulse. "run": one block per board and run. "cycle": in time
+    order, stretches of consecutive pulses at one rotation in one run, gathered until
+    every condition (field sign x rotation) is in; a last incomplete cycle joins the
+    one before, so every block holds every condition."""
+    runs = [(p.board, p.run) for p in a.used]
+    if how == "run":
+        keys = sorted(set(runs))
+        return np.array([keys.index(r) for r in runs], dtype=int)
+    group = np.zeros(len(a.used), dtype=int)
+    for k, g in enumerate(a.groups):
+        group[g.members] = k
+    order = sorted(range(len(a.used)), key=lambda i: (runs[i], a.used[i].onset_s))
+    every = {(int(group[i]), a.used[i].polarity) for i in order}
+    out = np.zeros(len(a.used), dtype=int)
+    block, stretch = 0, None
+    seen: set[tuple[int, int]] = set()
+    for i in order:
+        if (runs[i], group[i]) != stretch and seen >= every:
+            block, seen = block + 1, set()
+        stretch = (runs[i], group[i])
+        seen.add((int(group[i]), a.used[i].polarity))
+        out[i] = block
+    if block and seen != every:
+        out[out == block] = block - 1
+    return out
+
+
+def _block_errors(a: Analysis) -> None:
+    opt, fit = a.options, a.fit
+    a.blocks = block_numbers(a, opt.blocks)
+    count = int(a.blocks.max()) + 1
+    what = "complete cycles of the conditions" if opt.blocks == "cycle" else "runs"
+    if count < 2:
+        a.block_note = f"block-level errors need at least two blocks ({what}); found {count}"
+    else:
+        fit.block = block_errors(fit, a.blocks)
+        if not np.all(np.isfinite(fit.block.se)):
+            fit.block = None
+            a.block_note = (f"block-level errors undefined: a block ({opt.blocks}) holds all "
+                            "the pulses that fix some term")
+    if opt.errors == "block":
+        if fit.block is None:
+            raise InputError(f"--errors block: {a.block_note}")
+        fit.use_block = True
 
 
 def _conditions(used: list[PulseResult], groups: list[RotationGroup]) -> list[Condition]:
@@ -167,22 +253,49 @@ def _stacked_waves(members: list[PulseResult]) -> tuple[np.ndarray, np.ndarray]:
 def _compare(a: Analysis) -> None:
     fit, opt = a.fit, a.options
     k = fit.index("d")
-    d, se = float(fit.coef[k]), float(fit.se[k])
-    p_zero = 2 * float(stats.t.sf(abs(d / se), fit.dof))
-    a.checks.append(Test("d differs from zero", d / se, fit.dof, p_zero,
-                         "small p: a field x rotation term is present"))
+    d, se, dof = float(fit.coef[k]), float(fit.se[k]), float(fit.dofs[k])
+    a.checks.append(t_test("d differs from zero", d / se, dof,
+                           "small p: a field x rotation term is present"))
+    _calibration(a)
     if opt.slope_model is None:
         return
     pred = opt.slope_model
+    amp = None if opt.calibration is None else opt.calibration.amplifier
+    if amp is not None and opt.assumed_v_per_c:
+        # the measured charge gain replaces the gain the prediction assumed
+        pred *= amp.gain_v_per_c / opt.assumed_v_per_c
     if opt.by == "sign":
         pred *= float(np.mean(np.abs([p.current_a for p in a.used])))
     if not math.isfinite(pred) or pred == 0:
         return
     a.predicted_d = pred
     a.ratio = against_prediction(fit, pred, opt.level)
-    t = (d - pred) / se
-    a.checks.append(Test("d agrees with the model", t, fit.dof, 2 * float(stats.t.sf(abs(t), fit.dof)),
-                         "small p: the measured term differs from the model's value"))
+    if opt.calibration is not None:  # the calibration's own uncertainty widens d / model
+        from slipless.calib.apply import ratio_se
+
+        r = a.ratio
+        se_r = ratio_se(r.ratio, r.se, opt.calibration, *opt.calibrated)
+        half = (r.high - r.low) / 2 * (se_r / r.se if r.se > 0 else 1.0)
+        a.ratio = Ratio(r.predicted, r.ratio, se_r, r.ratio - half, r.ratio + half)
+    a.checks.append(t_test("d agrees with the model", (d - pred) / se, dof,
+                           "small p: the measured term differs from the model's value"))
+
+
+def _calibration(a: Analysis) -> None:
+    """d's standard error with the calibration's scale errors added (quadrature)."""
+    cal = a.options.calibration
+    if cal is None:
+        return
+    from slipless.calib.apply import d_relative_se, model_relative_se
+
+    k = a.fit.index("d")
+    d, se = float(a.fit.coef[k]), float(a.fit.se[k])
+    rel = d_relative_se(cal, *a.options.calibrated)
+    a.calibration = {"d_se_fit": se, "d_se": math.hypot(se, abs(d) * rel["total"]),
+                     "d_relative_se": rel, "model_relative_se": model_relative_se(cal),
+                     "streams": sorted(cal.streams), "source": cal.source,
+                     "amplifier_gain_v_per_c": None if cal.amplifier is None
+                     else cal.amplifier.gain_v_per_c}
 
 
 def _by_rotation(a: Analysis) -> None:
@@ -194,13 +307,13 @@ def _by_rotation(a: Analysis) -> None:
         idx = g.members
         if len(set(a.s[idx] > 0)) < 2 or idx.size < 3:
             continue
-        k, se, _ = slope(a.s[idx], a.y[idx])
+        sl = slope(a.s[idx], a.y[idx])
         a.rotation_rows.append({"rotation": g.label, "rotation_rad_s": g.rate_rad_s,
-                                "n": int(idx.size), "field_slope": k, "se": se,
+                                "n": int(idx.size), "field_slope": sl.value, "se": sl.se,
                                 "model_slope": float(b + d * g.rate_rad_s)})
         rates.append(g.rate_rad_s)
-        slopes.append(k)
-        ses.append(se)
+        slopes.append(sl.value)
+        ses.append(sl.se)
     if len(slopes) >= 2:
         a.checks.append(equal_slopes(np.array(slopes), np.array(ses)))
     if len(slopes) >= 3:
@@ -208,7 +321,7 @@ def _by_rotation(a: Analysis) -> None:
 
 
 def _segments(a: Analysis) -> None:
-    """Per run and rotation group: does the artifact or the induction term dominate?"""
+    """Per run and rotation group: is there a field response beyond the induction term?"""
     d = float(a.fit.coef[a.fit.index("d")])
     run_of = [(p.board, p.run) for p in a.used]
     for board, run in sorted({(p.board, p.run) for p in a.pulses}):
@@ -221,21 +334,32 @@ def _segments(a: Analysis) -> None:
         n_all = sum((p.board, p.run) == (board, run) for p in a.pulses)
         n_used = sum((p.board, p.run) == (board, run) for p in a.used)
         worst = next((f for f in ("artifact", "scatter", "ok", "control") if f in flags), "too few")
+        tested = [r for r in a.segments[len(a.segments) - len(flags):]
+                  if r["flag"] != "control" and math.isfinite(r["p_artifact"])]
+        low = min(tested, key=lambda r: r["p_artifact"], default=None)
         a.runs.append({"board": board, "run": run, "pulses": n_all, "used": n_used,
-                       "dropped": n_all - n_used, "flag": worst})
+                       "dropped": n_all - n_used, "flag": worst,
+                       "p_artifact": math.nan if low is None else low["p_artifact"],
+                       "dof": math.nan if low is None else low["dof"], "se_kind": SE_KIND})
 
 
 def _segment_row(a: Analysis, board: int, run: int, g: RotationGroup, idx: np.ndarray,
                  d: float) -> dict[str, Any]:
+    """The segment's field slope k against H0 k = d w (b = 0 here, d from the whole
+    fit): t = (k - d w) / se(k) with the slope's HC2-BM error and degrees of freedom
+    (d's own error is common to every segment and left out); flagged at ARTIFACT_P."""
     row: dict[str, Any] = {"board": board, "run": run, "rotation": g.label,
                            "rotation_rad_s": float(np.median(a.w[idx])), "n": int(idx.size),
-                           "field_slope": math.nan, "se": math.nan, "induction_part": math.nan,
-                           "artifact_part": math.nan, "scatter": math.nan, "flag": "too few"}
+                           "field_slope": math.nan, "se": math.nan, "dof": math.nan,
+                           "induction_part": math.nan, "artifact_part": math.nan,
+                           "p_artifact": math.nan, "scatter": math.nan, "flag": "too few",
+                           "se_kind": SE_KIND}
     if len(set(a.s[idx] > 0)) < 2 or idx.size < 4:
         return row
-    k, se, _ = slope(a.s[idx], a.y[idx])
+    sl = slope(a.s[idx], a.y[idx])
     ind = d * row["rotation_rad_s"]
-    art = k - ind
+    art = sl.value - ind
+    p_art = two_sided_p(art / sl.se, sl.dof)
     x = np.column_stack([np.ones(idx.size), a.s[idx]])
     resid = a.y[idx] - x @ np.linalg.lstsq(x, a.y[idx], rcond=None)[0]
     within = np.array([a.used[i].se_v for i in idx])
@@ -243,14 +367,14 @@ def _segment_row(a: Analysis, board: int, run: int, g: RotationGroup, idx: np.nd
     dof = idx.size - 2
     if g.stopped:
         flag = "control"
-    elif abs(art) > abs(ind) and abs(art) > 2 * se:
+    elif p_art < ARTIFACT_P:
         flag = "artifact"
     elif stats.chi2.sf(chi2, dof) < SCATTER_P:
         flag = "scatter"
     else:
         flag = "ok"
-    row.update(field_slope=k, se=se, induction_part=ind, artifact_part=art,
-               scatter=chi2 / dof, flag=flag)
+    row.update(field_slope=sl.value, se=sl.se, dof=sl.dof, induction_part=ind, artifact_part=art,
+               p_artifact=p_art, scatter=chi2 / dof, flag=flag)
     return row
 
 
@@ -276,11 +400,26 @@ def parse_rates(values: list[str] | None) -> dict[tuple[int, int] | None, float]
 
 
 def read_prediction(path: Path | None) -> tuple[float | None, float | None]:
+    return read_prediction_gain(path)[:2]
+
+
+def read_prediction_gain(path: Path | None) -> tuple[float | None, float | None, float | None]:
+    """(d per (A rad/s), field per A, the amplifier's assumed V per C at its input)
+    from `slipless predict --json`: gain x 1/Cf for a charge amplifier, gain x
+    1/(C + Cin) for a voltage amplifier (the charge C x EMF shared with its input)."""
     if path is None:
-        return None, None
+        return None, None, None
     try:
-        res = json.loads(path.read_text())["results"]
-        return float(res["slope_V_per_A_rad_s"]), float(res["field_T_per_A"])
+        doc = json.loads(path.read_text())
+        res, inp = doc["results"], doc.get("inputs", {})
+        gain = float(inp.get("gain", 1.0) or 1.0)
+        per_c: float | None = None
+        if inp.get("feedback_f"):
+            per_c = gain / float(inp["feedback_f"])
+        else:
+            c = float(res.get("capacitance_F") or 0.0) + float(inp.get("input_f") or 0.0)
+            per_c = gain / c if c > 0 else None
+        return float(res["slope_V_per_A_rad_s"]), float(res["field_T_per_A"]), per_c
     except OSError as exc:
         raise InputError(f"{path}: cannot read ({exc.strerror})") from exc
     except (ValueError, KeyError, TypeError) as exc:
@@ -301,9 +440,19 @@ def settings_from_args(args: Any) -> tuple[Settings, Options]:
                   baseline_s=_ms(args.baseline_ms), plateau_s=_ms(args.plateau_ms))
     if not 0.5 <= args.level < 1:
         raise InputError("--level is a confidence level such as 0.95")
-    slope_model, t_per_a = read_prediction(args.prediction)
+    slope_model, t_per_a, per_c = read_prediction_gain(args.prediction)
+    cal = getattr(args, "calibration", None)
+    if cal is not None and not hasattr(cal, "streams"):  # a path: the file, checked
+        from slipless.calib.file import load
+
+        cal = load(Path(cal))
     stopped = STOPPED_BELOW_RAD_S if args.stopped_below is None else args.stopped_below
     if not stopped > 0:
         raise InputError("--stopped-below must be positive")
+    _check_choices(args.errors, args.blocks)
     return st, Options(by=args.by, level=args.level, stopped_below=stopped,
-                       slope_model=slope_model, field_t_per_a=t_per_a)
+                       slope_model=slope_model, field_t_per_a=t_per_a, errors=args.errors,
+                       blocks=args.blocks, calibration=cal, assumed_v_per_c=per_c,
+                       calibrated=(st.signal, st.rotation or next(
+                           (n for n in ROTATION_NAMES if cal is not None and n in cal.streams),
+                           None)))

@@ -14,7 +14,7 @@ DEFAULTS: dict[str, Any] = {
     "signal": "cap_amp", "current": "coil_current", "rotation": None, "rotation_rate": None,
     "pulses_from": "auto", "on_amps": None, "off_amps": None, "settle_ms": None,
     "baseline_ms": None, "plateau_ms": None, "by": "current", "prediction": None, "level": 0.95,
-    "stopped_below": None,
+    "stopped_below": None, "calibration": None, "errors": "pulse", "blocks": "cycle",
 }
 
 

@@ -18,13 +18,18 @@ from slipless.errors import InputError
 from slipless.io.table_files import open_table
 from slipless.io.table_io import kind_of, spec
 from slipless.pulses.analysis import Analysis
-from slipless.pulses.fit import MEANING, SE_KIND, TERMS
+from slipless.pulses.fit import MEANING, TERMS, Errors
 from slipless.pulses.group import field_label, rotation_label
 
 SE_WHY = ("OLS coefficients; HC2 heteroskedasticity-consistent standard errors (noise differs "
           "between rotation conditions and the within-pulse errors miss pulse-to-pulse scatter, "
           "so the residuals are used; HC2 is unbiased when the noise is equal); intervals from "
-          "Student's t with n - 4 degrees of freedom")
+          "Student's t with each term's Bell-McCaffrey degrees of freedom (Satterthwaite's for "
+          "the error's own spread, nominal coverage down to 3 pulses per condition)")
+BLOCK_WHY = ("OLS coefficients; block-level CR2 standard errors (pulses of one block share "
+             "an error, e.g. a drifting artifact; for blocks of equal design this is the "
+             "spread of the per-block estimates); intervals from Student's t with each "
+             "term's Bell-McCaffrey degrees of freedom")
 
 
 def write_table(out: Path, name: str, fmt: str, cols: dict[str, Sequence[Any]]) -> Path:
@@ -79,12 +84,16 @@ def tables(a: Analysis) -> dict[str, dict[str, Any]]:
             "rotation": _columns(a.rotation_rows, ("rotation", "rotation_rad_s", "n",
                                                     "field_slope", "se", "model_slope")),
             "segments": _columns(a.segments, ("board", "run", "rotation", "rotation_rad_s", "n",
-                                              "field_slope", "se", "induction_part",
-                                              "artifact_part", "scatter", "flag")),
-            "runs": _columns(a.runs, ("board", "run", "pulses", "used", "dropped", "flag")),
+                                              "field_slope", "se", "dof", "induction_part",
+                                              "artifact_part", "p_artifact", "scatter", "flag",
+                                              "se_kind")),
+            "runs": _columns(a.runs, ("board", "run", "pulses", "used", "dropped", "flag",
+                                      "p_artifact", "dof", "se_kind")),
             "checks": {"check": [c.name for c in a.checks],
                        "statistic": [c.statistic for c in a.checks],
-                       "df": [c.df for c in a.checks], "p_value": [c.p_value for c in a.checks],
+                       "df": [float(c.df) for c in a.checks],
+                       "df2": [math.nan if c.df2 is None else c.df2 for c in a.checks],
+                       "p_value": [c.p_value for c in a.checks],
                        "meaning": [c.meaning for c in a.checks]}}
 
 
@@ -104,21 +113,40 @@ def _fit_table(a: Analysis) -> dict[str, list[Any]]:
                            "se_hc3", "ci_low", "ci_high"))
 
 
+def _errors(e: Errors | None, **more: Any) -> dict[str, Any] | None:
+    if e is None:
+        return None
+    return {"kind": e.kind, "clusters": e.clusters, **more,
+            "se": {t: _num(e.se[i]) for i, t in enumerate(TERMS)},
+            "dof": {t: _num(e.dof[i]) for i, t in enumerate(TERMS)}}
+
+
+def _num(x: float) -> float | None:
+    """A number for JSON (which has no NaN)."""
+    return float(x) if math.isfinite(x) else None
+
+
 def summary(a: Analysis) -> dict[str, Any]:
     f = a.fit
     lo, hi = f.ci(a.options.level)
     return {
         "pulses": len(a.pulses), "used": len(a.used), "s": a.s_unit, "level": a.options.level,
-        "se_kind": SE_KIND, "se_why": SE_WHY, "dof": f.dof,
-        "fit": {t: {"estimate": float(f.coef[i]), "se": float(f.se[i]),
+        "se_kind": f.errors.kind, "se_why": BLOCK_WHY if f.use_block else SE_WHY,
+        "dof": {t: _num(f.dofs[i]) for i, t in enumerate(TERMS)}, "dof_residual": f.dof,
+        "fit": {t: {"estimate": float(f.coef[i]), "se": float(f.se[i]), "dof": _num(f.dofs[i]),
                     "se_classical": float(f.se_classical[i]), "se_hc3": float(f.se_hc3[i]),
                     "ci": [float(lo[i]), float(hi[i])],
                     "unit": a.unit(t)} for i, t in enumerate(TERMS)},
+        "errors": {"used": "block" if f.use_block else "pulse", "pulse": _errors(f.pulse),
+                   "block": _errors(f.block, blocks=a.options.blocks),
+                   "block_note": a.block_note or None},
+        "calibration": a.calibration,
         "model": None if a.ratio is None else {
             "predicted_d": a.ratio.predicted, "ratio": a.ratio.ratio, "ratio_se": a.ratio.se,
             "ratio_ci": [a.ratio.low, a.ratio.high]},
-        "checks": [vars(c) for c in a.checks],
-        "runs": a.runs,
+        "checks": [{**vars(c), "p_value": _num(c.p_value)} for c in a.checks],
+        "runs": [{k: _num(v) if isinstance(v, float) else v for k, v in r.items()}
+                 for r in a.runs],
         "windows": [{"board": p.data.board, "run": p.data.run, "pulses_from": p.source,
                      "rotation_from": p.rotation_from, "rise_ms": _ms(p.windows.rise_s),
                      "settle_ms": _ms(p.windows.settle_s), "guard_ms": _ms(p.windows.guard_s),

@@ -2,9 +2,10 @@
 
 Sections: the run, completeness (frame account, gaps, timeline, loss against
 rotor angle), the clock model and its residuals, signal traces around a few
-pulses, the per-condition table and the fit against the prediction, and the
-safety notes. Each section is made from the same analyses as `loss`,
-`align` and `pulses`; a section whose analysis cannot run says why instead.
+pulses, the per-condition table and the fit against the prediction, the noise
+of each stream and the reach of the pulse fit, and the safety notes. Each
+section is made from the same analyses as `loss`, `align`, `pulses` and
+`noise`; a section whose analysis cannot run says why instead.
 """
 
 from __future__ import annotations
@@ -18,6 +19,7 @@ from typing import Any
 import numpy as np
 
 from slipless.errors import InputError
+from slipless.pulses.fit import SE_NAMES
 from slipless.report.html import esc, img_bytes, num, page, png, table
 from slipless.report.plotting import pyplot
 from slipless.version import __version__
@@ -48,16 +50,31 @@ class ReportData:
     notes: dict[str, str] = field(default_factory=dict)  # section -> why it is empty
     idle: set[tuple[int, int]] = field(default_factory=set)  # (board, run) with no run started
     channels: tuple[str, str] = ("cap_amp", "coil_current")  # signal, current
+    noise: Any = None  # noise.Noise
 
 
-def collect(run: Any, prediction: Path | None = None) -> ReportData:
-    """Every section's analysis from one decoded Run (run.open_run)."""
+def collect(run: Any, prediction: Path | None = None,
+            calibration: Path | None = None) -> ReportData:
+    """Every section's analysis from one decoded Run (run.open_run); a calibration
+    file corrects the streams first."""
     data = ReportData([s.path for s in run.sources if s.kind != "mirror"],
                       [s.path for s in run.sources if s.kind == "mirror"])
+    if calibration is not None:
+        run.calibrate(calibration)
     _loss(data, run)
     _clock(data, run)
-    _pulses(data, run, prediction)
+    _pulses(data, run, prediction, calibration)
+    _noise(data, run, prediction)
     return data
+
+
+def _noise(d: ReportData, run: Any, prediction: Path | None) -> None:
+    from slipless import noise
+
+    try:
+        d.noise = noise.analyse(run, analysis=d.pulses, pulses=False, prediction=prediction)
+    except InputError as exc:
+        d.notes["noise"] = f"no noise analysis: {exc}"
 
 
 def _loss(d: ReportData, run: Any) -> None:
@@ -93,11 +110,12 @@ def _clock(d: ReportData, run: Any) -> None:
         d.notes["clock"] = "no laptop receive times in the inputs: no clock model"
 
 
-def _pulses(d: ReportData, run: Any, prediction: Path | None) -> None:
+def _pulses(d: ReportData, run: Any, prediction: Path | None,
+            calibration: Path | None = None) -> None:
     from slipless.pulses.analysis import analyse, settings_from_args
     from slipless.pulses.options import namespace
 
-    st, opt = settings_from_args(namespace(prediction=prediction))
+    st, opt = settings_from_args(namespace(prediction=prediction, calibration=calibration))
     d.channels = (st.signal, st.current)
     d.runs = run.pulse_runs()
     try:
@@ -265,7 +283,8 @@ def _conditions(d: ReportData) -> str:
     ck = t["checks"]
     out = ("<p>Mean pulse response per condition (baseline removed):</p>"
            + table(("condition", "rotation rad/s", "current A", "pulses", "mean µV", "se µV"), rows)
-           + f"<p>Factorial fit (confidence level {a.options.level:.0%}); d is the field x "
+           + f"<p>Factorial fit (confidence level {a.options.level:.0%}, "
+           f"{esc(SE_NAMES[a.fit.errors.kind])}); d is the field x "
            "rotation term the model predicts, b the part that flips with the field alone:</p>"
            + table(("term", "meaning", "estimate", "unit", "se", "low", "high"), fit_rows)
            + table(("check", "statistic", "df", "p", "meaning"),
@@ -283,6 +302,41 @@ def _conditions(d: ReportData) -> str:
     return out
 
 
+def _noise_section(d: ReportData) -> str:
+    if d.noise is None:
+        return f"<p class=\"note\">{esc(d.notes.get('noise', 'no noise analysis'))}</p>"
+    from slipless import noise
+
+    doc = noise.summary(d.noise)
+    rows = []
+    for st in doc["streams"]:
+        t = st.get("terms") or {}
+        cells = []
+        for k in ("N", "B", "K"):
+            term = t.get(k) or {}
+            cells.append("-" if term.get("value") is None else
+                         f"{num(term['value'])} {term.get('unit', '')}")
+        rows.append((st["name"], st["unit"], st["rate_hz"], st["spans"], st["longest_s"],
+                     st["floor_asd"], *cells))
+    out = ("<p>Per stream, over its gap-free stretches only: the noise floor (median "
+           "amplitude spectral density of a Welch spectrum, unit/&radic;Hz) and the terms of "
+           "IEEE Std 952's Allan variance method read off the overlapping Allan deviation "
+           "(N at slope &minus;1/2, B the minimum / 0.664, K at slope +1/2; meaningful on a "
+           "quiet stretch: `slipless noise --window` picks one).</p>"
+           + table(("stream", "unit", "rate Hz", "stretches", "longest s", "floor /\u221aHz",
+                    "N", "B", "K"), rows))
+    sens = doc.get("sensitivity") or {}
+    notes = sens.get("notes") or []
+    if sens.get("reach"):
+        out += ("<p>Reach of the pulse fit: the smallest |d| and |b| told from zero at 95 % "
+                "against the number of pulses, from the Allan deviation of the fit's residuals"
+                + (", with the predicted d and the Earth's part of b (which lands in b, "
+                   "beside the field artifact)" if sens.get("predicted_d") is not None else "")
+                + ".</p>")
+    out += "".join(f'<p class="note">{esc(n)}</p>' for n in notes)
+    return out + png(noise.figure(d.noise))
+
+
 def _safety() -> str:
     items = "".join(f"<li>{esc(s)}</li>" for s in SAFETY)
     return f'<div class="safety"><ul>{items}</ul></div>'
@@ -296,6 +350,7 @@ def render(d: ReportData, title: str, made: str | None = None) -> str:
                 ("clock", "Clock model", _clock_section(d)),
                 ("traces", "Signals around pulses", _traces(d)),
                 ("conditions", "Conditions and the prediction", _conditions(d)),
+                ("noise", "Noise and sensitivity", _noise_section(d)),
                 ("safety", "Safety notes", _safety())]
     if made is None:
         made = dt.datetime.now(dt.UTC).strftime("%Y-%m-%d %H:%M UTC")
