@@ -10,11 +10,11 @@ import math
 
 import numpy as np
 import pytest
+from rig_runs import run_data
 
 from slipless.errors import InputError
 from slipless.noise import allan, sensitivity
 from slipless.pulses.analysis import Analysis, Options, analyse
-from slipless.pulses.data import RunData, Series
 from slipless.pulses.reduce import Settings
 from slipless.sim import rig
 
@@ -24,12 +24,7 @@ BLOCKS = (0.0, 2 * math.pi, -2 * math.pi)
 def rig_analysis(seed: int, repeats: int, by: str = "current") -> tuple[Analysis, rig.RigConfig]:
     cfg = rig.RigConfig(seed=seed, blocks_rad_s=BLOCKS * repeats)
     sig = rig.signals(cfg)
-    rd = RunData(cfg.board, cfg.run)
-    rd.streams = {"cap_amp": Series(sig.t_s, sig.cap_v, "V"),
-                  "coil_current": Series(sig.t_s, sig.current_a, "A"),
-                  "gyro_z": Series(sig.gyro_t_s, sig.gyro_rad_s, "rad/s")}
-    rd.coil_t_s, rd.coil_state = sig.event_t_s, sig.event_state
-    return analyse([rd], Settings(), Options(by=by)), cfg
+    return analyse([run_data(sig)], Settings(), Options(by=by)), cfg
 
 
 @pytest.mark.parametrize("seed", [0, 1])

@@ -16,6 +16,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from rig_runs import run_data
 from scipy import stats
 
 from slipless.cli import main
@@ -30,17 +31,6 @@ from slipless.sim import rig
 from slipless.sim.channel import ChannelConfig, ChannelLog, transmit
 
 SHORT = {"blocks_rad_s": (0.0, 2 * math.pi, -2 * math.pi), "block_s": 20.0}
-
-
-def run_data(sig: rig.RigSignals) -> RunData:
-    """The rig's samples as the decoder would hand them over (no frames: fast)."""
-    rd = RunData(sig.cfg.board, sig.cfg.run)
-    rd.streams = {"cap_amp": Series(sig.t_s, sig.cap_v, "V"),
-                  "coil_current": Series(sig.t_s, sig.current_a, "A")}
-    if sig.cfg.gyro:
-        rd.streams["gyro_z"] = Series(sig.gyro_t_s, sig.gyro_rad_s, "rad/s")
-    rd.coil_t_s, rd.coil_state = sig.event_t_s, sig.event_state
-    return rd
 
 
 def with_model(cfg: rig.RigConfig, **kw: object) -> Options:

@@ -11,24 +11,15 @@ import math
 
 import numpy as np
 import pytest
+from rig_runs import run_data
 from scipy import stats
 
 from slipless.pulses.analysis import ARTIFACT_P, Options, analyse
-from slipless.pulses.data import RunData, Series
 from slipless.pulses.reduce import Settings
 from slipless.pulses.report import tables
 from slipless.sim import rig
 
 SHORT = {"blocks_rad_s": (0.0, 2 * math.pi, -2 * math.pi), "block_s": 20.0}
-
-
-def run_data(sig: rig.RigSignals) -> RunData:
-    rd = RunData(sig.cfg.board, sig.cfg.run)
-    rd.streams = {"cap_amp": Series(sig.t_s, sig.cap_v, "V"),
-                  "coil_current": Series(sig.t_s, sig.current_a, "A"),
-                  "gyro_z": Series(sig.gyro_t_s, sig.gyro_rad_s, "rad/s")}
-    rd.coil_t_s, rd.coil_state = sig.event_t_s, sig.event_state
-    return rd
 
 
 def test_the_segment_test_is_welchs_t_on_the_slope() -> None:

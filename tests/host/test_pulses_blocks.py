@@ -17,11 +17,11 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from rig_runs import run_data
 from scipy import stats
 
 from slipless.cli import main
 from slipless.pulses.analysis import Analysis, Options, analyse, block_numbers
-from slipless.pulses.data import RunData, Series
 from slipless.pulses.fit import design, weights
 from slipless.pulses.reduce import Settings
 from slipless.sim import rig
@@ -29,16 +29,6 @@ from slipless.sim import rig
 TWO_PI = 2 * math.pi
 DRAWS = 8000  # coverage standard error 0.0024 at 0.95
 CHECK_P = 0.01
-
-
-def run_data(sig: rig.RigSignals) -> RunData:
-    """The rig's samples as the decoder would hand them over (no frames: fast)."""
-    rd = RunData(sig.cfg.board, sig.cfg.run)
-    rd.streams = {"cap_amp": Series(sig.t_s, sig.cap_v, "V"),
-                  "coil_current": Series(sig.t_s, sig.current_a, "A"),
-                  "gyro_z": Series(sig.gyro_t_s, sig.gyro_rad_s, "rad/s")}
-    rd.coil_t_s, rd.coil_state = sig.event_t_s, sig.event_state
-    return rd
 
 
 def cycles(count: int) -> tuple[float, ...]:

@@ -24,6 +24,7 @@ from slipless.errors import (
     FlashError,  # noqa: F401
     InputError,
 )
+from slipless.io.json_text import parse_json
 
 DEFAULT_PROFILE = "esp32-devkitc"
 ROOT_SOURCES = ("boot.py", "main.py")  # the board runs these from / as source
@@ -109,13 +110,7 @@ def parse_config_file(cfgmod, path: Path, flashing: bool = False) -> tuple[str, 
         raise InputError(f"{path}: config file not found") from None
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError(f"{path}: cannot read config ({exc})") from None
-    try:
-        raw = json.loads(text)
-    except json.JSONDecodeError as exc:  # where it broke: the board's parser cannot say
-        raise InputError(f"{path}: not valid JSON: line {exc.lineno} column {exc.colno}: "
-                         f"{exc.msg}") from None
-    except RecursionError:
-        raise InputError(f"{path}: config: nested too deeply") from None
+    raw = parse_json(text, path)  # where a slip is: the board's own parser cannot say
     try:
         config = cfgmod.parse(text)
     except cfgmod.ConfigError as exc:

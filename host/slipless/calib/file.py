@@ -27,6 +27,7 @@ from pathlib import Path
 from typing import Any
 
 from slipless.errors import InputError
+from slipless.io.json_text import parse_json
 
 FORMAT = "slipless-calibration"
 VERSION = 1
@@ -102,10 +103,7 @@ def load(path: Path) -> Calibration:
         raise InputError(f"{path}: no such calibration file") from None
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError(f"{path}: cannot read ({getattr(exc, 'strerror', None) or exc})") from None
-    try:
-        doc = json.loads(text)
-    except json.JSONDecodeError as exc:
-        raise InputError(f"{path}: line {exc.lineno} column {exc.colno}: {exc.msg}") from None
+    doc = parse_json(text, path)
     if not isinstance(doc, dict) or doc.get("format") != FORMAT:
         raise InputError(f"{path}: not a slipless calibration (want \"format\": \"{FORMAT}\")")
     if doc.get("version") != VERSION:
