@@ -69,10 +69,10 @@ def collect(run: Any, prediction: Path | None = None,
 
 
 def _noise(d: ReportData, run: Any, prediction: Path | None) -> None:
-    from slipless import noise
+    from slipless.noise import analyse
 
     try:
-        d.noise = noise.analyse(run, analysis=d.pulses, pulses=False, prediction=prediction)
+        d.noise = analyse(run, analysis=d.pulses, pulses=False, prediction=prediction)
     except InputError as exc:
         d.notes["noise"] = f"no noise analysis: {exc}"
 
@@ -305,9 +305,9 @@ def _conditions(d: ReportData) -> str:
 def _noise_section(d: ReportData) -> str:
     if d.noise is None:
         return f"<p class=\"note\">{esc(d.notes.get('noise', 'no noise analysis'))}</p>"
-    from slipless import noise
+    from slipless.noise import figure, summary
 
-    doc = noise.summary(d.noise)
+    doc = summary(d.noise)
     rows = []
     for st in doc["streams"]:
         t = st.get("terms") or {}
@@ -334,7 +334,7 @@ def _noise_section(d: ReportData) -> str:
                    "beside the field artifact)" if sens.get("predicted_d") is not None else "")
                 + ".</p>")
     out += "".join(f'<p class="note">{esc(n)}</p>' for n in notes)
-    return out + png(noise.figure(d.noise))
+    return out + png(figure(d.noise))
 
 
 def _safety() -> str:
