@@ -87,13 +87,88 @@ def disconnected(conn: int) -> bytes:
 # Read By Type Response (opcode 0x09 [verified: BlueZ att-types.h]): length of each entry,
 # then entries; a characteristic declaration is declaration handle, properties, value
 # handle, UUID little-endian [from memory: Core Vol 3 Part F 3.4.4.2 and Part G 3.3.1].
+def declaration_pdu(*chars: tuple[int, str, int]) -> bytes:
+    return b"\x09\x15" + b"".join(struct.pack("<HBH", vh - 1, props, vh) + uuid.UUID(u).bytes[::-1]
+                                   for vh, u, props in chars)
+
+
 def declarations(*chars: tuple[int, str, int], conn: int = 0x0040) -> bytes:
-    body = b"".join(struct.pack("<HBH", vh - 1, props, vh) + uuid.UUID(u).bytes[::-1]
-                    for vh, u, props in chars)
-    return record(acl(conn, 0b10, l2cap(b"\x09\x15" + body)), RECEIVED)
+    return record(acl(conn, 0b10, l2cap(declaration_pdu(*chars))), RECEIVED)
 
 
 DISCOVERY = declarations((0x0010, wire.DATA_UUID, 0x10), (0x0012, wire.COMMAND_UUID, 0x0C))
+
+
+def cut_record(pkt: bytes, flags: int, keep: int, stamp_us: int = T0) -> bytes:
+    """A record the logger cut short: original length len(pkt), included length keep, only
+    keep bytes logged (record layout: references 7a [verified])."""
+    return struct.pack(">IIIIq", len(pkt), keep, flags, 0, stamp_us) + pkt[:keep]
+
+
+# LE signalling channel 0x0005 (references 7b [verified]). A command: code u8, identifier
+# u8, length u16 LE, data [verified: bumble l2cap.py L2CAP_Control_Frame.from_bytes "<BBH"].
+def signal(code: int, ident: int, data: bytes) -> bytes:
+    return l2cap(struct.pack("<BBH", code, ident, len(data)) + data, cid=0x0005)
+
+
+# L2CAP_CREDIT_BASED_CONNECTION_REQ 0x17: SPSM, MTU, MPS, initial credits, source CIDs (u16
+# LE each); L2CAP_CREDIT_BASED_CONNECTION_RSP 0x18: MTU, MPS, initial credits, result,
+# destination CIDs [verified: bumble l2cap.py L2CAP_Credit_Based_Connection_Request and
+# _Response field order, docstrings citing Core Vol 3 Part A 4.25 / 4.26]. EATT PSM 0x0027
+# [verified: bumble att.py EATT_PSM]; results 0x000D-0x000F "pending" [verified: bumble's
+# Result enum, ALL_CONNECTIONS_PENDING_*]; 0x0000 for a refused CID [from memory: Part A 4.26].
+def credit_req(ident: int, cids: list[int], spsm: int = 0x0027, mtu: int = 247,
+               mps: int = 64) -> bytes:
+    return signal(0x17, ident, struct.pack("<HHHH", spsm, mtu, mps, 10)
+                  + b"".join(struct.pack("<H", c) for c in cids))
+
+
+def credit_rsp(ident: int, cids: list[int], result: int = 0, mtu: int = 247, mps: int = 64) -> bytes:
+    return signal(0x18, ident, struct.pack("<HHHH", mtu, mps, 10, result)
+                  + b"".join(struct.pack("<H", c) for c in cids))
+
+
+# L2CAP_DISCONNECTION_RSP 0x07: destination CID, source CID [verified: bumble l2cap.py
+# L2CAP_Disconnection_Response, citing Core Vol 3 Part A 4.7].
+def disconnection_rsp(ident: int, dcid: int, scid: int) -> bytes:
+    return signal(0x07, ident, struct.pack("<HH", dcid, scid))
+
+
+def kframes(sdu: bytes, cid: int, mps: int = 64) -> list[bytes]:
+    """An SDU as K-frames (L2CAP PDUs) of at most mps payload bytes, the first led by the SDU
+    length u16 [verified: bumble l2cap.py LeCreditBasedChannel.process_output packs
+    '<H' len + payload and sends peer_mps slices; Core Vol 3 Part A 3.4, from memory]."""
+    body = struct.pack("<H", len(sdu)) + sdu
+    return [l2cap(body[i : i + mps], cid=cid) for i in range(0, len(body), mps)]
+
+
+# ATT_MULTIPLE_HANDLE_VALUE_NTF 0x23: (handle u16, length u16, value) repeated [verified:
+# Zephyr subsys/bluetooth/host/att_internal.h BT_ATT_OP_NOTIFY_MULT 0x23, struct
+# bt_att_notify_mult {handle, len, value[]}; Core Vol 3 Part F 3.4.7.4, from memory].
+def multi_notify(*values: tuple[int, bytes]) -> bytes:
+    return b"\x23" + b"".join(struct.pack("<HH", h, len(v)) + v for h, v in values)
+
+
+# ATT_PREPARE_WRITE_REQ 0x16: handle, value offset (u16 LE each), part value;
+# ATT_EXECUTE_WRITE_REQ 0x18: flags u8, 0x01 write, 0x00 cancel [verified: bumble att.py
+# ATT_Prepare_Write_Request / ATT_Execute_Write_Request, citing Core Vol 3 Part F 3.4.6.1 /
+# 3.4.6.3; gatt_client.write_long_value sends flags 0x00 to cancel, 0x01 to commit].
+def prepare(handle: int, offset: int, part: bytes) -> bytes:
+    return b"\x16" + struct.pack("<HH", handle, offset) + part
+
+
+def execute(flags: int = 0x01) -> bytes:
+    return bytes([0x18, flags])
+
+
+def sent(payload: bytes, conn: int = 0x0040) -> bytes:
+    """A complete L2CAP PDU the logging host sent (PB 0b00, flags 0: references 7b)."""
+    return record(acl(conn, 0b00, payload), SENT)
+
+
+def received(payload: bytes, conn: int = 0x0040) -> bytes:
+    """A complete L2CAP PDU the logging host received (PB 0b10, flags 1: references 7b)."""
+    return record(acl(conn, 0b10, payload), RECEIVED)
 
 
 def write_log(path: Path, *records: bytes, header: bytes = H4_HEADER) -> Path:
@@ -360,7 +435,7 @@ def test_cli_bad_datalink_is_one_line(tmp_path: Path) -> None:
 # subscribes, writes a command, and records twice: bumble's btsnoop snooper on its HCI
 # traffic, and our capture writer from its notification callback. It then disconnects
 # and connects again using the handles it cached (no characteristic discovery), as
-# phones do, so the second connection tests the reader's first-discovery rule.
+# phones do, so the second connection tests the choice from a link's own traffic.
 
 MTU = 247
 
@@ -474,6 +549,13 @@ def test_real_stack_second_connection_did_not_discover(session: Session) -> None
     second = [i for i, u in enumerate(units) if u[3] is None][2]  # the second connection's start
     assert any(u[3][0] == 0x09 for u in units[:second] if u[3] is not None)
     assert not any(u[3][0] == 0x09 for u in units[second:] if u[3] is not None)
+    # so its handles come from its own traffic: the same as the first link discovered
+    report = read(session.log)[1]
+    first, again = report.links
+    assert (first.how, again.how) == ("discovered", "traffic") and again.link == 2
+    assert (again.data, again.command) == (first.data, first.command)
+    assert f"(link 2): no discovery of its own: notifications on 0x{first.data:04X}" in (
+        report.note("session.log"))
 
 
 def test_real_stack_log_decodes_like_our_capture(session: Session, tmp_path: Path) -> None:

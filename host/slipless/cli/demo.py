@@ -252,7 +252,8 @@ def _pulse_lines(sc: Scenario, data: Any, out: Path) -> list[str]:
         k = names.index(term)
         est = float(a.fit.coef[k])
         covered = abs(est - truth[term]) <= half[k]
-        lines.append(f"      {term} ({what}): estimate {est:.4g} +- {half[k]:.2g}, simulated "
+        lines.append(f"      {term} ({what}): estimate {est:.4g}, {a.options.level:.0%} interval "
+                     f"+-{half[k]:.2g}, simulated "
                      f"{truth[term]:.4g}: {'inside' if covered else 'OUTSIDE'} the "
                      f"{a.options.level:.0%} interval")
     if a.ratio is not None:

@@ -71,8 +71,8 @@ def _burst_lines(b: dict[str, Any]) -> list[str]:
         f"bursts (RFC 3611, Gmin {r11['gmin']}): {r11['bursts']}, burst density "
         f"{r11['burst_density']:.3f}, gap density {r11['gap_density']:.4f}, mean burst "
         f"{r11['burst_mean_s']:.3f} s, mean gap {r11['gap_mean_s']:.3f} s",
-        f"two-state model: p(arrive -> lose) = {ts['p_good_to_bad']:.4f} +- {ts['p_stderr']:.4f}, "
-        f"r(lose -> arrive) = {ts['r_bad_to_good']:.3f} +- {ts['r_stderr']:.3f}, "
+        f"two-state model: p(arrive -> lose) = {ts['p_good_to_bad']:.4f} (se {ts['p_stderr']:.4f}), "
+        f"r(lose -> arrive) = {ts['r_bad_to_good']:.3f} (se {ts['r_stderr']:.3f}), "
         f"mean burst {ts['mean_burst_frames']:.2f} frames",
     ]
 

@@ -35,7 +35,7 @@ def conditions(a: Analysis, path: Path) -> Path:
                label="field +" if pol > 0 else "field -")
     ax.axhline(0, color="0.4", lw=0.8)
     ax.set_xticks(x, rotations)
-    ax.set_ylabel("response (V), mean +- 1 se")
+    ax.set_ylabel("response (V): mean, bars 1 se")
     ax.set_title("pulse response by condition")
     ax.legend()
     return _save(fig, path)
@@ -91,9 +91,12 @@ def against_model(a: Analysis, path: Path) -> Path:
     ax.plot(x, part, ".", ms=4, alpha=0.6, label="pulses (a, b, c terms removed)")
     xs = np.linspace(min(x.min(), 0), max(x.max(), 0), 50)
     per_x = 1.0 / (t_per_a or 1.0)
-    ax.plot(xs, coef[3] * per_x * xs, lw=1.5, label=f"fit d = {coef[3]:.4g} +- {f.se[3]:.2g}")
+    unit = a.unit("d")
+    ax.plot(xs, coef[3] * per_x * xs, lw=1.5,
+            label=f"fit d = {coef[3]:.4g} {unit} (se {f.se[3]:.2g})")
     if a.predicted_d is not None:
-        ax.plot(xs, a.predicted_d * per_x * xs, "--", lw=1.5, label=f"model {a.predicted_d:.4g}")
+        ax.plot(xs, a.predicted_d * per_x * xs, "--", lw=1.5,
+                label=f"model d = {a.predicted_d:.4g} {unit}")
     if t_per_a:
         ax.set_xlabel("w x B (rad/s x T)")
     else:
