@@ -35,6 +35,8 @@ def test_sections_and_images(report: Path) -> None:
     assert "http://" not in page and "https://" not in page and "<script" not in page
     assert "the account closes" in page
     assert "flyback" in page and "lost link" in page
+    assert re.search(r"run\.slcap: recorded \d{4}-\d\d-\d\d \d\d:\d\d:\d\d UTC", page)
+    assert "Noise and sensitivity" in page and "IEEE Std 952" in page
 
 
 def test_cli_writes_page(tmp_path: Path) -> None:

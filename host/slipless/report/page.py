@@ -125,11 +125,33 @@ def _pulses(d: ReportData, run: Any, prediction: Path | None,
 
 
 # ---- sections ------------------------------------------------------------------------------
+def _recorded(path: Path) -> str:
+    """`: recorded <UTC date>, label "..."` from a capture's header ("" for other inputs)."""
+    from slipless.io import capture
+
+    try:
+        with path.open("rb") as f:
+            if not capture.is_capture(f.read(16)):
+                return ""
+            f.seek(0)
+            meta = capture.read_header(f)
+    except (OSError, capture.CaptureError):
+        return ""
+    parts = []
+    wall = meta.get("created_wall_ns")
+    if isinstance(wall, int) and wall > 0:
+        parts.append("recorded " + dt.datetime.fromtimestamp(wall / 1e9, dt.UTC)
+                     .strftime("%Y-%m-%d %H:%M:%S UTC"))
+    if meta.get("label"):
+        parts.append(f"label \"{meta['label']}\"")
+    return (": " + ", ".join(parts)) if parts else ""
+
+
 def _summary(d: ReportData) -> str:
     doc = d.loss_doc or {}
     rows = [(r["board"], r["run"], r["frames_expected"], r["samples_expected"],
              "yes" if r["end_seen"] else "no", len(r["gaps"])) for r in doc.get("runs", [])]
-    files = "".join(f"<li>{esc(p)}</li>" for p in d.inputs)
+    files = "".join(f"<li>{esc(p)}{esc(_recorded(p))}</li>" for p in d.inputs)
     files += "".join(f"<li>{esc(p)} (board mirror)</li>" for p in d.mirrors)
     pulses = "" if d.pulses is None else (
         f"<p>{len(d.pulses.pulses)} coil pulses found, {len(d.pulses.used)} used.</p>")
