@@ -81,6 +81,15 @@ class Run:
     # account_inputs): what the radio delivered before the mirror filled it in
     calibration: Any = None  # the calib.file.Calibration applied (calibrate())
 
+    def metadata(self) -> list[dict[str, Any]]:
+        """Per input: its path, kind and, for a capture, its header (label, operator,
+        amplifier, rig (the prediction JSON), recorder, laptop, dates)."""
+        from slipless.io.capture_meta import capture_header
+
+        return [{"path": str(s.path), "kind": s.kind,
+                 "header": capture_header(s.path) if s.kind == "capture" else None}
+                for s in self.sources]
+
     def calibrate(self, cal: Any) -> list[str]:
         """Apply a calibration (calib.file.Calibration, or a path to its file) to the
         channels: align, pulses and the report then read corrected values, and

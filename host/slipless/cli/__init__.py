@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import argparse
 import importlib
+import json
 import sys
 from collections.abc import Callable, Sequence
 from pathlib import Path
@@ -154,8 +155,12 @@ def decode_files(inputs: Sequence[Path], out: Path, fmt: str, console: Console |
     from slipless.cli.progress import bytes_progress
     from slipless.run import open_run
 
-    return open_run(inputs, mirrors, tables=out, table_format=fmt, progress=bytes_progress(console),
-                    hold=False).decoder
+    run = open_run(inputs, mirrors, tables=out, table_format=fmt, progress=bytes_progress(console),
+                   hold=False)
+    # what each capture's header says of the run (label, operator, amplifier, rig...)
+    (out / "inputs.json").write_text(json.dumps({"inputs": run.metadata()}, indent=1,
+                                                default=str) + "\n")
+    return run.decoder
 
 
 def cmd_decode(args: argparse.Namespace, console: Console) -> int:

@@ -43,7 +43,13 @@ def add_parsers(sub: Any) -> None:
     _add_notify_option(r)
     r.add_argument("--duration", type=float, default=0.0, metavar="S",
                    help="stop after S seconds (default: until the run ends or Ctrl-C)")
-    r.add_argument("--label", default="", help="run label sent with START (at most 32 bytes)")
+    r.add_argument("--label", default="", help="run label sent with START (at most 32 bytes); "
+                   "kept in the capture")
+    r.add_argument("--operator", default="", metavar="NAME", help="who ran it (kept in the capture)")
+    r.add_argument("--rig", type=Path, metavar="FILE.json",
+                   help="the rig's `slipless predict --json` output, kept in the capture")
+    r.add_argument("--amplifier", default="", metavar="TEXT",
+                   help="the amplifier's settings as set on the bench (kept in the capture)")
     r.add_argument("--ping-every", type=float, default=1.0, metavar="S",
                    help="time-sync ping cadence (default 1 s)")
     r.add_argument("--no-start", action="store_true",
@@ -199,6 +205,7 @@ def run_record(args: argparse.Namespace, console: Console) -> int:
     if len(args.label.encode()) > 32:
         raise InputError("--label: at most 32 bytes")
     check_new_file(args.out, "capture")
+    args.rig_doc = read_rig(args.rig)  # a bad file fails before any file is written
     if args.watch:
         view_options(args, "watch-")  # its errors too come before any file is written
     signer = signer_for(args, console)  # before any file is written: no key, no capture
@@ -218,7 +225,9 @@ async def _record(args: argparse.Namespace, console: Console, signer: Any = None
     meta = {"slipless": __version__, "created_wall_ns": time.time_ns(),
             "created_mono_ns": time.monotonic_ns(), "host": platform.node(),
             "backend": args.backend, "sources": [{"target": args.target or ""}],
-            "sync_every_s": args.sync_every, "label": args.label, "recorder": host_info()}
+            "sync_every_s": args.sync_every, "label": args.label, "recorder": host_info(),
+            "operator": args.operator, "amplifier": args.amplifier,
+            **({"rig": args.rig_doc} if args.rig_doc is not None else {})}
     try:
         writer = CaptureWriter(args.out, meta, args.sync_every, exclusive=True)
     except FileExistsError:
@@ -273,6 +282,25 @@ async def _record(args: argparse.Namespace, console: Console, signer: Any = None
         console.print(f"the board no longer held frames {lost}: pull its mirror to recover them "
                       "(slipless pull), or they are lost")
     return 0
+
+
+def read_rig(path: Path | None) -> dict[str, Any] | None:
+    """The --rig file: `slipless predict --json` output, small enough for the header."""
+    if path is None:
+        return None
+    from slipless.io.json_text import parse_json
+
+    try:
+        text = path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"--rig {path}: cannot read ({getattr(exc, 'strerror', None) or exc})") \
+            from None
+    doc = parse_json(text, path)
+    if not isinstance(doc, dict) or "results" not in doc:
+        raise InputError(f"--rig {path}: not the output of `slipless predict --json`")
+    if len(text.encode()) > 32_000:
+        raise InputError(f"--rig {path}: over 32 kB: the capture's header holds at most 64 kB")
+    return doc
 
 
 def watch_state(args: argparse.Namespace) -> Any:

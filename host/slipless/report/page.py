@@ -126,24 +126,20 @@ def _pulses(d: ReportData, run: Any, prediction: Path | None,
 
 # ---- sections ------------------------------------------------------------------------------
 def _recorded(path: Path) -> str:
-    """`: recorded <UTC date>, label "..."` from a capture's header ("" for other inputs)."""
-    from slipless.io import capture
+    """`: recorded <UTC date>, label "...", ...` from a capture's header ("" else)."""
+    from slipless.io.capture_meta import capture_header
 
-    try:
-        with path.open("rb") as f:
-            if not capture.is_capture(f.read(16)):
-                return ""
-            f.seek(0)
-            meta = capture.read_header(f)
-    except (OSError, capture.CaptureError):
-        return ""
+    meta = capture_header(path) or {}
     parts = []
     wall = meta.get("created_wall_ns")
     if isinstance(wall, int) and wall > 0:
         parts.append("recorded " + dt.datetime.fromtimestamp(wall / 1e9, dt.UTC)
                      .strftime("%Y-%m-%d %H:%M:%S UTC"))
-    if meta.get("label"):
-        parts.append(f"label \"{meta['label']}\"")
+    for key, what in (("label", "label"), ("operator", "by"), ("amplifier", "amplifier")):
+        if meta.get(key):
+            parts.append(f"{what} \"{meta[key]}\"")
+    if isinstance(meta.get("rig"), dict):
+        parts.append("rig prediction kept")
     return (": " + ", ".join(parts)) if parts else ""
 
 
