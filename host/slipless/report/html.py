@@ -28,6 +28,7 @@ table { border-collapse: collapse; margin: 6px 0 12px; font-variant-numeric: tab
 th, td { padding: 3px 9px; border-bottom: 1px solid #e2ddd2; text-align: right; }
 th { background: #f1ede4; font-weight: 600; }
 td:first-child, th:first-child, td.t { text-align: left; }
+td:not(.t) { white-space: nowrap; }  /* a number (a p-value, 1.2e-05) never wraps */
 img { max-width: 100%; border: 1px solid #e2ddd2; margin: 6px 0; }
 .ok { color: #2f6b3a; font-weight: 600; }
 .bad { color: #9a3324; font-weight: 600; }
