@@ -26,7 +26,7 @@ from typing import Any
 import numpy as np
 
 from slipless.align.collect import AlignSink, Collected, _anchor
-from slipless.decode.decoder import ORIGINS, Arrival, Decoder, RunState, Tee
+from slipless.decode.decoder import FATES, ORIGINS, Arrival, Decoder, RunState, Tee
 from slipless.decode.store import ChannelStore, Columns
 from slipless.decode.tables import TableSink
 from slipless.errors import InputError
@@ -36,7 +36,6 @@ from slipless.loss.collect import CommandLog, Facts, LossSink, link_down
 from slipless.protocol import wire
 
 Key = tuple[int, int]
-FATES = ("received", "duplicate", "missing", "corrupt")
 TABLES = ("samples", "events", "status", "frames", "timing", "streams")
 
 

@@ -52,6 +52,13 @@ def status(board, run, tick, **kw):
     return {"board": board, "run": run, "op": "status", **kw, "args": a}
 
 
+def raw_samples(board, run, sid, tick, values_hex):
+    """A SAMPLES frame of any length: stream id and tick32, then the bytes given."""
+    payload = struct.pack("<BI", sid, tick & 0xFFFFFFFF).hex() + values_hex
+    return {"board": board, "run": run, "op": "raw",
+            "args": {"version": wire.VERSION, "kind": wire.SAMPLES, "payload": payload}}
+
+
 def info(board, run, **args):
     return {"board": board, "run": run, "op": "info", "args": args}
 
@@ -185,6 +192,50 @@ def cases():
                name="rotor-\u00e4" + "x" * 12, profile="p" * wire.MAX_TEXT),
             op(0xFFFF, 0, "info_request", request=4),
             sealed(1, wire.CMD_INFO, 5, b"", 3)], [])
+    # The end of a run first (a capture), then its start (the mirror read after it): the
+    # late DESCRIPTOR and STATUS are kept references, so the early frames resolve exactly
+    # although the latest reference is 5000 frames (over 2**32 us) away.
+    yield ("late-anchor", "a reference that arrives late (the run's start after its end) "
+           "resolves the frames beside it",
+           [status(4, 2, 5_000_000_000, seq=5000),
+            samples(4, 2, 0, 5_000_500_000, h_, [50, 51], seq=5001),
+            desc(4, 2, 0, [CAP], seq=0),
+            samples(4, 2, 0, 1000, h_, [1, 2], seq=1),
+            op(4, 2, "events", events=[[2500, wire.EV_MARKER, 7]], seq=2),
+            status(4, 2, 3000, seq=3),
+            samples(4, 2, 0, 3000, h_, [3], seq=4)], [])
+    # SAMPLES checks in their order: too short, then the stream (undefined, or of a type
+    # this release does not read), then whole samples.
+    yield ("samples-checks", "the checks on a SAMPLES body, in order: length, stream, "
+           "whole samples",
+           [desc(1, 7, 0, [CAP, stream(1, ord("q"), 1000, 1.0, 0.0, "wide", "V")]),
+            raw_samples(1, 7, 9, 1000, "010203"),     # undefined stream, odd length: undecodable
+            raw_samples(1, 7, 1, 1000, "01020304"),   # a type this release does not read
+            raw_samples(1, 7, 0, 1000, "010203"),     # 3 bytes of int16: malformed
+            raw_samples(1, 7, 9, 1000, ""),           # no sample at all: malformed first
+            samples(1, 7, 0, 2000, h_, [5])], [])
+    yield ("duplicate-damage", "a duplicate is a frame of the run that arrived: damage "
+           "before it is not charged to the next gap",
+           [desc(1, 7, 0, [CAP])] + [samples(1, 7, 0, k * 3000, h_, [k]) for k in range(4)],
+           [{"frame": 3, "op": "flip", "byte": 9, "bit": 3},
+            {"frame": 3, "op": "copy_after", "copy": 2}])
+    yield ("reply-after-end", "replies after END (seqs at or past its frame count) are not "
+           "frames of the run",
+           [desc(1, 7, 0, [CAP]), samples(1, 7, 0, 0, h_, [5, 6]),
+            op(1, 7, "end", tick=2000, reason=1, totals=[[0, 2]]),
+            op(1, 7, "sync", request=9, host_ns=77, rx_tick=3000, tx_tick=3100),
+            op(1, 7, "ack", request=10, opcode=wire.CMD_STATUS, seq=5),
+            status(1, 7, 4000, seq=6)], [])
+    yield ("events-undescribed", "a run that never sent a descriptor: its events are exact "
+           "within 31 frames of a reference (the largest max_gap_ms a descriptor can carry), "
+           "its samples undecodable, a SAMPLES body with no sample malformed",
+           [status(1, 3, 10_000_000),
+            op(1, 3, "events", events=[[10_000_800, wire.EV_CONN_INTERVAL, 15000]]),
+            raw_samples(1, 3, 0, 10_001_000, "0100"),
+            raw_samples(1, 3, 0, 10_002_000, ""),
+            op(1, 3, "events", events=[[2_010_000_000, wire.EV_LINK, 1]], seq=31)], [])
+    yield ("tick-limit", "an anchor whose tick is 2**62 us or later is malformed",
+           [desc(1, 7, 0, [CAP]), status(1, 7, 1 << 62), samples(1, 7, 0, 1000, h_, [1])], [])
 
 
 AUTH_KEY = bytes(range(32))  # the vector's key (common practice: any 32 bytes)
@@ -251,6 +302,8 @@ def apply_damage(frames, damage):
             extra[i] = bytes.fromhex(d["hex"])
         elif kind == "repeat":
             extra[i] = bytes(f)
+        elif kind == "copy_after":  # another frame's copy arrives after this one
+            extra[i] = extra.get(i, b"") + bytes(frames[d["copy"]])
         else:
             raise ValueError(kind)
     out = bytearray()
@@ -264,14 +317,20 @@ def apply_damage(frames, damage):
 def expected(case_ops, frames, lost, damaged, damage):
     seqs = _seqs(case_ops)
     junk = [d for d in damage if d["op"] == "insert_after"]
-    exp = {"samples": [], "events": [], "status": [], "replies": [], "frames": [],
+    exp = {"samples": [], "events": [], "status": [], "replies": [], "frames": [], "streams": [],
            "counters": {"damaged_segments": sum(damaged.values()) + _junk_segments(junk),
-                        "commands": 0, "unknown_kind": 0, "bad_version": 0}}
+                        "commands": 0, "unknown_kind": 0, "bad_version": 0, "malformed": 0,
+                        "undecodable": 0}}
     periods = {}  # from every descriptor that arrives: held samples wait for one
+    types = {}
     for i, o in enumerate(case_ops):
         if o["op"] == "descriptor" and i not in lost:
             for s in o["args"]["streams"]:
-                periods[((o["board"], o["run"]), s[0])] = s[3]
+                if s[1] in wire.SAMPLE_SIZES:  # (an entry of an unknown type is ignored)
+                    periods[((o["board"], o["run"]), s[0])] = s[3]
+                    types[((o["board"], o["run"]), s[0])] = s[1]
+    exp["streams"] = sorted([k[0][0], k[0][1], k[1]] for k in periods)
+    ends = {}  # run -> END's frame count: seqs at or past it are replies (SPEC 3.8)
     received = {}
     for i, (o, seq) in enumerate(zip(case_ops, seqs)):
         key = (o["board"], o["run"])
@@ -284,18 +343,30 @@ def expected(case_ops, frames, lost, damaged, damage):
         if o["op"] == "raw" and o["args"]["version"] != wire.VERSION:
             exp["counters"]["bad_version"] += 1
             continue
-        received.setdefault(key, []).append(seq)
+        if key in ends and seq >= ends[key]:
+            exp["frames"].append([key[0], key[1], seq, "reply"])
+        else:
+            received.setdefault(key, []).append(seq)
+        if o["op"] == "end":
+            ends[key] = seq + 1
+        if o["op"] == "raw" and o["args"]["kind"] == wire.SAMPLES:
+            _raw_samples(exp, o, key, seq, periods, types)
+            continue
         if o["op"] == "raw":
             exp["counters"]["unknown_kind"] += 1
             continue
+        if o["op"] == "status" and o["args"]["tick"] >= TICK_MAX:
+            exp["counters"]["malformed"] += 1  # past any board's time (SPEC 5)
+            continue
         _content(exp, o, key, seq, periods)
     for d in damage:
-        if d["op"] == "repeat":
-            o = case_ops[d["frame"]]
-            exp["frames"].append([o["board"], o["run"], seqs[d["frame"]], "duplicate"])
+        if d["op"] in ("repeat", "copy_after"):
+            o = case_ops[d.get("copy", d["frame"])]
+            exp["frames"].append([o["board"], o["run"], seqs[d.get("copy", d["frame"])],
+                                  "duplicate"])
     for key, got in received.items():
         high = max(got)  # an END frame is always the last of its run
-        gap_damage = _gap_damage(case_ops, seqs, key, lost, damaged)
+        gap_damage = _gap_damage(case_ops, seqs, key, lost, damaged, damage)
         run_lost = []
         for seq in range(high + 1):
             if seq in got:
@@ -309,6 +380,27 @@ def expected(case_ops, frames, lost, damaged, damage):
         exp[k].sort()
     exp["frames"] = compress_fates(exp["frames"])
     return exp
+
+
+TICK_MAX = 1 << 62  # board time ends here (SPEC 5)
+
+
+def _raw_samples(exp, o, key, seq, periods, types):
+    """SPEC 4's checks on a SAMPLES body, in order: at least one sample byte, a
+    stream the descriptor defines with a type this release reads, whole samples."""
+    payload = bytes.fromhex(o["args"]["payload"])
+    sid = payload[0] if payload else None
+    if len(payload) < 6:
+        exp["counters"]["malformed"] += 1
+    elif (key, sid) not in types:
+        exp["counters"]["undecodable"] += 1
+    elif (len(payload) - 5) % wire.SAMPLE_SIZES[types[(key, sid)]]:
+        exp["counters"]["malformed"] += 1
+    else:
+        tick = struct.unpack_from("<I", payload, 1)[0]
+        fmt = "<" + chr(types[(key, sid)])
+        for k, (v,) in enumerate(struct.iter_unpack(fmt, payload[5:])):
+            exp["samples"].append([key[0], key[1], sid, seq, tick + k * periods[(key, sid)], v])
 
 
 def compress_fates(rows):
@@ -332,20 +424,26 @@ def _junk_segments(junk):
     return n
 
 
-def _gap_damage(ops, seqs, key, lost, damaged):
-    """seq -> True where the SPEC rule calls the lost frame corrupt."""
+def _gap_damage(ops, seqs, key, lost, damaged, damage):
+    """seq -> True where the SPEC rule calls the lost frame corrupt. Every frame of
+    the run that arrives (a duplicate copy too) ends the damage count (SPEC 6)."""
     out = {}
     run = [(i, s) for i, (o, s) in enumerate(zip(ops, seqs)) if (o["board"], o["run"]) == key]
+    copies = {d["frame"] for d in damage if d["op"] in ("repeat", "copy_after")
+              and (ops[d.get("copy", d["frame"])]["board"],
+                   ops[d.get("copy", d["frame"])]["run"]) == key}
     pending = []
     budget = 0
     for i, s in run:
         budget += sum(c for j, c in damaged.items() if j == i)
         if i in lost:
             pending.append(s)
-            continue
-        for s2 in sorted(pending)[:budget]:
-            out[s2] = True
-        pending, budget = [], 0
+        else:
+            for s2 in sorted(pending)[:budget]:
+                out[s2] = True
+            pending, budget = [], 0
+        if i in copies:  # a copy of a frame of the run arrived after this one
+            budget = 0
     return out
 
 

@@ -208,7 +208,9 @@ def _raw(enc: wire.Encoder, kind: int, payload: bytes, vk: int | None = None) ->
 class _Board:
     def __init__(self, rng: random.Random, board: int, run: int) -> None:
         self.enc = wire.Encoder(board, run, seq=rng.choice([0, 0, 5, 300]))
-        self.tick = rng.choice([0, 1 << 20, (1 << 32) - 5000, 1 << 40, (1 << 62) + 7])
+        # (past 2**61 the block path hands over to frames; from 2**62 anchors are malformed)
+        self.tick = rng.choice([0, 1 << 20, (1 << 32) - 5000, 1 << 40, (1 << 61) - 5000,
+                                (1 << 62) + 7])
         self.max_gap_ms = rng.choice([5000, 5000, 1, 60000])
         self.streams = [(sid, rng.choice(TYPES), rng.randrange(2), rng.choice([1000, 250, 7]),
                          rng.choice([1e-3, 0.5, 2.0]), 0.0, f"s{sid}", "V")
@@ -300,6 +302,8 @@ def build_stream(rng: random.Random) -> list[tuple[bytes, int]]:
             b.tick += rng.choice([1 << 31, 1 << 33, 3_000_000_000])  # a long silence
             continue
         sent += [(f, src) for f in frame]
+    if rng.random() < 0.2:  # everything again later, as a mirror read after the link
+        sent += sent[: rng.randrange(1, len(sent) + 1)]
     return sent
 
 

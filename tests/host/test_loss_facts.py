@@ -117,7 +117,9 @@ def _live_order() -> list[int]:
 def _decode(sink: Any, bulk: bool, snapshot: list[Any] | None = None) -> Decoder:
     fr = _frames()
     dec = Decoder(sink)
-    live = [fr[s] for s in _live_order()] + [fr[s] for s in sorted(RESENT)]
+    laptop = wire.Encoder(0xFFFF, RUN)  # the RESEND the laptop wrote: their origin is "resend"
+    asked = laptop.frame(laptop.resend(1, min(RESENT), max(RESENT)))
+    live = [fr[s] for s in _live_order()] + [asked] + [fr[s] for s in sorted(RESENT)]
     if bulk:
         data = b"".join(live)
         assert len(data) > 16384  # the decoder's bulk path

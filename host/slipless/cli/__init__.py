@@ -98,6 +98,9 @@ def build_parser() -> argparse.ArgumentParser:
     from slipless.cli.noise import add_parser as add_noise_parser
 
     add_noise_parser(sub)
+    from slipless.cli.campaign import add_parser as add_campaign_parser
+
+    add_campaign_parser(sub)
     return p
 
 
@@ -117,6 +120,7 @@ COMMANDS = {
     "watch": ("slipless.cli.watch", "run_watch"),
     "calibrate": ("slipless.cli.calibrate", "run_calibrate"),
     "noise": ("slipless.cli.noise", "run_noise"),
+    "campaign": ("slipless.cli.campaign", "run_campaign"),
 }
 
 
@@ -197,14 +201,17 @@ def print_summary(dec: Decoder, console: Console) -> None:
         notes.append(f"{c.bad_version} frames of protocol version(s) "
                      f"{sorted(c.versions_seen)} were skipped")
     if c.malformed:
-        notes.append(f"{c.malformed} frames passed the CRC but did not match their layout")
+        notes.append(f"{c.malformed} frames passed the CRC but did not match their layout "
+                     "or carried a tick past board time")
     for r in dec.runs.values():
         if r.undecodable:
             notes.append(f"board {r.board} run {r.run}: {r.undecodable} frames could not be "
-                         "decoded (no run descriptor seen)")
+                         "decoded (no descriptor, a stream it does not define, or a sample "
+                         "type this release does not read)")
         if r.ticks_uncertain:
-            notes.append(f"board {r.board} run {r.run}: {r.ticks_uncertain} frames have "
-                         "uncertain board time (long gap without a full tick)")
+            notes.append(f"board {r.board} run {r.run}: {r.ticks_uncertain} frames gave "
+                         "samples or events whose board time is uncertain (too far in seq "
+                         "from every tick reference)")
     for n in notes + dec.notes:
         console.print(f"note: {n}")
 

@@ -6,7 +6,10 @@ counted, never raised (see Counters). What it keeps per run is bounded:
 the descriptor, a tick reference, the list of sequence gaps and at most
 MAX_HELD frames that wait for a descriptor or a tick anchor; and, so frames
 that come late (resent, from a mirror) unwrap against a reference near them,
-one earlier reference per half hot span (a few thousand in a day's run).
+kept references at least half the tick rule's bound apart, whichever order
+their frames come in (a few thousand in a day's run; SPEC 5). Replies after
+END stay outside the run's sequence (SPEC 3.8); a RESEND the laptop wrote
+is what makes a late radio frame a "resend".
 
 Speed: a chunk of at least BULK_BYTES (a file read) goes through
 FastDeframer.feed_block and _feed_block: the headers of all its frames are
@@ -24,6 +27,8 @@ from __future__ import annotations
 import bisect
 import struct
 from dataclasses import dataclass, field
+from functools import cached_property
+from operator import itemgetter
 from typing import Any, Protocol
 
 import numpy as np
@@ -37,8 +42,10 @@ _HEADER = struct.Struct(wire.HEADER)
 _SAMPLES_HEAD = struct.Struct(wire.HEADER + wire.SAMPLES_FIXED.lstrip("<"))
 _DESC_FIXED = struct.Struct(wire.DESCRIPTOR_FIXED)
 _TICK_LIMIT = 1 << 31  # the nearest-tick rule is exact within +-2**31 us
+_MAX_GAP_ANY_US = 0xFFFF * 1000  # the largest max_gap a descriptor can carry (u16 ms)
 _ANCHOR_KINDS = (wire.DESCRIPTOR, wire.STATUS, wire.SYNC, wire.END)  # carry 64-bit ticks
 _VK_SAMPLES = (wire.VERSION << 4) | wire.SAMPLES
+_FIRST = itemgetter(0)
 _DTYPES = {0x62: "<i1", 0x42: "<u1", 0x68: "<i2", 0x48: "<u2", 0x69: "<i4", 0x49: "<u4",
            0x66: "<f4"}
 BULK_BYTES = 16384  # chunks at least this long are decoded as a block (about 70 full frames)
@@ -53,10 +60,24 @@ _HEAD = np.dtype([("vk", "u1"), ("board", "<u2"), ("run", "<u2"), ("seq", "<u4")
                   ("tick32", "<u4")])
 _HEAD_COLS = np.arange(_HEAD.itemsize)
 _NO_STREAM = 255  # item size of a stream a run does not describe: no SAMPLES payload divides by it
-_TICK_SAFE = 1 << 62  # block ticks are int64 sums: references beyond this go frame by frame
+_TICK_SAFE = 1 << 61  # block ticks are int64 sums: references beyond this go frame by frame
+# Board time is below 2**62 us (146,000 years; SPEC 5): a tick at or past it is damage, and
+# int64 columns could not hold what a frame resolved near it would need.
+TICK_MAX = 1 << 62
+_MIN_SAMPLES_BODY = _SAMPLES_HEAD.size + 1  # a SAMPLES body holds at least one sample byte
+# Replies a board still sends after END (SPEC 3.8): at seqs at or above END's frame count
+# they answer commands and are not frames of the run.
+REPLY_KINDS = (wire.STATUS, wire.SYNC, wire.ACK, wire.ERROR, wire.INFO)
+# Frames never received handed to the sink one row each, per run: a CRC-valid frame with a
+# seq near 2**32 would otherwise open a gap of billions (the runs table still counts them all).
+MAX_UNSEEN_ROWS = 1_000_000
+_RESEND_CMD = struct.Struct(wire.HEADER + wire.COMMAND_FIXED.lstrip("<")
+                            + wire.RESEND_ARGS.lstrip("<"))
 
 
 ORIGINS = ("radio", "resend", "mirror", "stream")
+# A frame's fate in frame(): "reply" is a frame at or past END's frame count (SPEC 3.8).
+FATES = ("received", "duplicate", "missing", "corrupt", "reply")
 
 
 @dataclass(frozen=True)
@@ -68,7 +89,9 @@ class Arrival:
     at reception (-1 when unknown, as in a raw stream or a mirror file); origin
     is how the bytes came: "radio" (live link), "mirror" (the board's file),
     "stream" (any other byte stream). A radio frame that fills an earlier gap
-    is reported with origin "resend".
+    after the laptop asked for it (a RESEND among the bytes it wrote, which
+    reach the decoder too) is reported with origin "resend"; one that merely
+    came out of order stays "radio".
     """
 
     source: int = 0
@@ -91,7 +114,7 @@ class StreamInfo:
     name: str
     unit: str
 
-    @property
+    @cached_property
     def dtype(self) -> np.dtype[Any]:
         return np.dtype(_DTYPES[self.type])
 
@@ -108,8 +131,11 @@ class RunState:
     run: int
     tick_hz: int = 0
     fw: str = ""
-    max_gap_us: int = wire.DEFAULT_MAX_GAP_MS * 1000
-    hot_span: int = _TICK_LIMIT // (wire.DEFAULT_MAX_GAP_MS * 1000) - 1  # see set_max_gap
+    # Until a descriptor says otherwise, the largest max_gap_ms a descriptor can carry (u16),
+    # so the tick rule stays safe: an EVENTS frame of a run never described is exact within
+    # 31 frames of a reference (SPEC 5).
+    max_gap_us: int = _MAX_GAP_ANY_US
+    hot_span: int = _TICK_LIMIT // _MAX_GAP_ANY_US - 1  # see set_max_gap
     n_streams: int = 0
     streams: dict[int, StreamInfo] = field(default_factory=dict)
     described: bool = False
@@ -118,6 +144,9 @@ class RunState:
     kept_refs: list[tuple[int, int]] = field(default_factory=list)  # (seq, tick): one per half
     # hot span, so a frame that comes late (resent, from a mirror) still finds a reference
     held: list[tuple[int, int, bytes, int, Arrival]] = field(default_factory=list)
+    announced: bool = False  # the sink was told of the descriptor (once it is complete)
+    replies: set[int] = field(default_factory=set)  # seqs of replies after END (SPEC 3.8)
+    unlisted: int = 0  # frames never received not handed over one by one (MAX_UNSEEN_ROWS)
     first_seq: int = -1
     high_seq: int = -1
     gaps: list[list[int]] = field(default_factory=list)  # [first, last, n_corrupt_guess]
@@ -147,16 +176,30 @@ class RunState:
 
     def ref_for(self, seq: int) -> int | None:
         """The 64-bit tick of a reference near enough `seq` for the nearest-tick
-        rule: the latest one, else the nearest of those kept; None if none is."""
+        rule: the latest one, else the nearer of the kept ones either side of it
+        (of two equally near, the later); None if none is (SPEC 5)."""
         if self.ref_seq < 0:
             return None
-        if (abs(seq - self.ref_seq) + 1) * self.max_gap_us < _TICK_LIMIT:
+        gap_us = self.max_gap_us
+        if (abs(seq - self.ref_seq) + 1) * gap_us < _TICK_LIMIT:
             return self.ref_tick
-        i = bisect.bisect_left(self.kept_refs, (seq,))
-        for ref_seq, ref_tick in self.kept_refs[max(0, i - 1) : i + 1]:
-            if (abs(seq - ref_seq) + 1) * self.max_gap_us < _TICK_LIMIT:
-                return ref_tick
+        kept = self.kept_refs
+        i = bisect.bisect_left(kept, (seq,))
+        best = kept[i] if i < len(kept) else None
+        if i and (best is None or seq - kept[i - 1][0] < best[0] - seq):
+            best = kept[i - 1]
+        if best is not None and (abs(seq - best[0]) + 1) * gap_us < _TICK_LIMIT:
+            return best[1]
         return None
+
+    def nearest_ref(self, seq: int) -> int:
+        """The tick of the reference nearest `seq` in seq (latest or kept; of two
+        equally near, the later): what a forced frame is unwrapped against."""
+        i = bisect.bisect_left(self.kept_refs, (seq,))
+        best = (abs(seq - self.ref_seq), -self.ref_seq, self.ref_tick)
+        for ref_seq, ref_tick in self.kept_refs[max(0, i - 1) : i + 1]:
+            best = min(best, (abs(seq - ref_seq), -ref_seq, ref_tick))
+        return best[2]
 
     def set_ref(self, seq: int, tick: int) -> None:
         """A newer frame whose 64-bit tick is known becomes the reference."""
@@ -165,8 +208,48 @@ class RunState:
         if not kept or (seq - kept[-1][0]) * 2 >= self.hot_span:
             kept.append((seq, tick))
 
+    def known_tick(self, seq: int, tick: int) -> None:
+        """A frame whose 64-bit tick is known: the latest reference if it is the
+        newest, else kept when no kept reference is within half the bound of it
+        (SPEC 5): a late anchor (a mirror read after the capture) is one."""
+        if seq > self.ref_seq:
+            self.set_ref(seq, tick)
+            return
+        kept, span = self.kept_refs, self.hot_span
+        i = bisect.bisect_left(kept, (seq,))
+        if ((not i or (seq - kept[i - 1][0]) * 2 >= span)
+                and (i == len(kept) or (kept[i][0] - seq) * 2 >= span)):
+            kept.insert(i, (seq, tick))
+
+
+class _Asked:
+    """The seq ranges the laptop asked boards to resend, per (board, run) field of
+    the RESEND (0xFFFF: any board, 0: the board's current run), merged."""
+
+    def __init__(self) -> None:
+        self._ranges: dict[tuple[int, int], tuple[list[int], list[int]]] = {}
+
+    def add(self, board: int, run: int, first: int, last: int) -> None:
+        starts, ends = self._ranges.setdefault((board, run), ([], []))
+        i = bisect.bisect_left(ends, first - 1)  # the first range that reaches first - 1
+        j = bisect.bisect_right(starts, last + 1)  # past the last range that starts by last + 1
+        if i < j:
+            first, last = min(first, starts[i]), max(last, ends[j - 1])
+        starts[i:j], ends[i:j] = [first], [last]
+
+    def covers(self, board: int, run: int, seq: int) -> bool:
+        for key in ((board, run), (board, 0), (0xFFFF, run), (0xFFFF, 0)):
+            got = self._ranges.get(key)
+            if got is not None:
+                i = bisect.bisect_right(got[0], seq) - 1
+                if i >= 0 and seq <= got[1][i]:
+                    return True
+        return False
+
 
 class Sink(Protocol):
+    # descriptor(): once per run, when its streams are known (every part of a split
+    # descriptor come, or at the end of input with the parts that came); run.streams.
     def descriptor(self, run: RunState) -> None: ...
     def samples(self, run: RunState, info: StreamInfo, seq: np.ndarray, tick: np.ndarray,
                 raw: np.ndarray) -> None: ...
@@ -175,6 +258,8 @@ class Sink(Protocol):
     def event(self, run: RunState, seq: int, tick: int, code: int, value: int) -> None: ...
     def status(self, run: RunState, seq: int, fields: dict[str, Any]) -> None: ...
     def reply(self, run: RunState, seq: int, kind: int, fields: dict[str, Any]) -> None: ...
+    # frame(): every frame's fate (FATES), as it arrives; at finish() one row per frame
+    # never received ("missing"/"corrupt", kind -1, origin ""), at most MAX_UNSEEN_ROWS.
     def frame(self, run: RunState, seq: int, kind: int, fate: str, offset: int, origin: str,
               arrival: Arrival) -> None: ...
     def timing(self, run: RunState, seq: int, kind: int, tick: int, arrival: Arrival) -> None: ...
@@ -375,6 +460,7 @@ class Decoder:
         self._batches: dict[tuple[int, int, int], _Batch] = {}
         self._done: list[FastDeframer] = []  # deframers of inputs already read
         self._damage_now = 0  # damaged segments seen before the frame being handled
+        self._asked = _Asked()  # RESEND ranges the laptop wrote (origin "resend" needs one)
         self.notes: list[str] = []  # what the readers of the inputs had to skip
 
     def new_input(self) -> None:
@@ -432,7 +518,8 @@ class Decoder:
                 _, board, run_id, seq, stream, tick32 = unpack(body)
                 run = runs.get((board, run_id))
                 if (run is not None and seq == run.high_seq + 1 and run.damage_mark == damage
-                        and run.described and seq - run.ref_seq < run.hot_span):
+                        and run.described and seq - run.ref_seq < run.hot_span
+                        and -_TICK_SAFE < run.ref_tick < _TICK_SAFE and run.end is None):
                     batch = batches.get((board, run_id, stream))
                     if (batch is not None and batch.info is run.streams.get(stream)
                             and not (len(body) - _SAMPLES_HEAD.size) % batch.itemsize):
@@ -481,13 +568,18 @@ class Decoder:
         cuts = (np.flatnonzero(~cont) + 1).tolist()
         runs = self.runs
         for i, j in zip([0, *cuts], [*cuts, n]):
+            late = i  # frames before this one go frame by frame without asking _stretch
             while i < j:
-                if j - i >= _MIN_STRETCH:
+                if j - i >= _MIN_STRETCH and i >= late:
                     run = runs.get((int(board[i]), int(run_id[i])))
                     k = i if run is None else self._stretch(run, i, j, base + int(dmg[i]))
                     if k > i:
                         i = k
                         continue
+                    if run is not None and int(seq[i]) <= run.high_seq:
+                        # below the run's highest seq: late frames, none a stretch can take
+                        # until the seq after it (they do not move it)
+                        late = i + run.high_seq + 1 - int(seq[i])
                 self._damage_now = base + int(dmg[i])
                 self._frame(frames.body(i), int(frames.offsets[i]))
                 i += 1
@@ -502,7 +594,8 @@ class Decoder:
         assert blk is not None
         seq0 = int(blk.seq[i])
         if not (run.described and seq0 == run.high_seq + 1 and run.damage_mark == damage
-                and seq0 - run.ref_seq < run.hot_span and -_TICK_SAFE < run.ref_tick < _TICK_SAFE):
+                and seq0 - run.ref_seq < run.hot_span and -_TICK_SAFE < run.ref_tick < _TICK_SAFE
+                and run.end is None):
             return i
         # a stream the run does not describe, or values that do not fill whole items: stop there
         known = blk.misfits.get(run.key)
@@ -666,6 +759,7 @@ class Decoder:
             self._done.append(d)
         self._deframers = {}
         for run in self.runs.values():
+            self._announce(run)  # a split descriptor never completed: what was named
             self._release_held(run, final=True)
         self._flush()
         for run in self.runs.values():
@@ -688,45 +782,85 @@ class Decoder:
             return
         if kind == wire.COMMAND:  # laptop -> board; not in the board's sequence space
             self.counters.commands += 1
+            self._command(body)
             return
         run = self.runs.get((board, run_id))
         if run is None:
             run = self.runs[(board, run_id)] = RunState(board, run_id)
+        if run.end is not None and seq >= run.end["frames"]:
+            self._after_end(run, kind, seq, body, offset)
+            return
         fate, late = self._account(run, seq)
         origin = self.arrival.origin
-        if late and origin == "radio":
-            origin = "resend"
+        if late and origin == "radio" and self._asked.covers(board, run_id, seq):
+            origin = "resend"  # it filled a gap after the laptop asked for it
         self.sink.frame(run, seq, kind, fate, offset, origin, self.arrival)
         if fate == "duplicate":
             return
+        self._content(run, kind, seq, body, offset)
+
+    def _content(self, run: RunState, kind: int, seq: int, body: bytes, offset: int) -> None:
+        """A new frame's content: decoded, held or counted (SPEC 4's checks, in order)."""
         if kind not in wire.KIND_NAMES:
             self.counters.unknown_kind += 1  # a newer sender's kind: skip, but it held a seq
             return
         if kind == wire.SAMPLES:
-            if self._ready(run, kind, seq, body):
-                self._samples(run, seq, body)
+            if len(body) < _MIN_SAMPLES_BODY:  # the bytes alone decide: no descriptor needed
+                self.counters.malformed += 1
+            elif (ref := self._ready_ref(run, kind, seq, body)) is not None:
+                self._samples(run, seq, body, ref=ref)
             else:
                 self._hold(run, kind, seq, body, offset)
             return
-        if kind == wire.EVENTS and not self._ready(run, kind, seq, body):
-            self._hold(run, kind, seq, body, offset)
-            return
+        if kind == wire.EVENTS:
+            entries = len(body) - wire.HEADER_SIZE
+            if entries % wire.EVENT_ENTRY_SIZE:
+                self.counters.malformed += 1
+            elif entries and not self._ready(run, kind, seq, body):
+                self._hold(run, kind, seq, body, offset)
+            elif entries:
+                self._typed(run, kind, seq, body, offset)
+            return  # (no entries: nothing to decode or to wait for)
         self._typed(run, kind, seq, body, offset)
         if kind in _ANCHOR_KINDS and run.held:
             self._release_held(run)
 
+    def _after_end(self, run: RunState, kind: int, seq: int, body: bytes, offset: int) -> None:
+        """A frame at or past END's frame count: a reply to a command, not a frame of
+        the run (SPEC 3.8). Decoded as any frame, outside the sequence accounting."""
+        run.damage_mark = self._damage_now
+        origin = self.arrival.origin
+        if seq in run.replies:
+            run.duplicates += 1
+            self.sink.frame(run, seq, kind, "duplicate", offset, origin, self.arrival)
+            return
+        run.replies.add(seq)
+        self.sink.frame(run, seq, kind, "reply", offset, origin, self.arrival)
+        self._content(run, kind, seq, body, offset)
+
+    def _command(self, body: bytes) -> None:
+        """A RESEND the laptop wrote (plain or sealed): the frames it asks for."""
+        if len(body) < _RESEND_CMD.size:
+            return
+        _, board, run_id, _, opcode, _, first, last = _RESEND_CMD.unpack_from(body)
+        if opcode & 0x7F == wire.CMD_RESEND and first <= last:
+            self._asked.add(board, run_id, first, last)
+
     @staticmethod
-    def _ready(run: RunState, kind: int, seq: int, body: bytes) -> bool:
+    def _ready_ref(run: RunState, kind: int, seq: int, body: bytes) -> int | None:
         """SAMPLES and EVENTS need the descriptor (for max_gap_ms) and an
         unambiguous tick; SAMPLES also their stream's entry, unless the
-        descriptor is complete (then an unknown stream is undecodable)."""
+        descriptor is complete (then an unknown stream is undecodable).
+        -> the tick of the reference to unwrap against, None: not ready."""
         if not run.described:
-            return False
-        if (kind == wire.SAMPLES and len(body) > wire.HEADER_SIZE
-                and body[wire.HEADER_SIZE] not in run.streams
+            return None
+        if (kind == wire.SAMPLES and body[wire.HEADER_SIZE] not in run.streams
                 and len(run.streams) + run.bad_streams < run.n_streams):
-            return False  # a later part of a split descriptor will name it
-        return run.tick_ok(seq)
+            return None  # a later part of a split descriptor will name it
+        return run.ref_for(seq)
+
+    def _ready(self, run: RunState, kind: int, seq: int, body: bytes) -> bool:
+        return self._ready_ref(run, kind, seq, body) is not None
 
     def _account(self, run: RunState, seq: int) -> tuple[str, bool]:
         """Sequence bookkeeping: (fate, whether the frame filled an earlier gap)."""
@@ -740,7 +874,7 @@ class Decoder:
                 run.gaps.append([run.high_seq + 1, seq - 1, damage - run.damage_mark])
             run.high_seq = seq
         elif not self._fill_gap(run, seq):
-            run.duplicates += 1
+            run.duplicates += 1  # (a duplicate is a frame of the run that arrived: SPEC 6)
             run.damage_mark = damage
             return "duplicate", False
         else:
@@ -753,76 +887,141 @@ class Decoder:
 
     @staticmethod
     def _fill_gap(run: RunState, seq: int) -> bool:
-        for i, (first, last, corrupt) in enumerate(run.gaps):
-            if first <= seq <= last:
-                # The damaged segments stay with the first frames of the gap (SPEC).
-                head = min(corrupt, seq - first)
-                tail = min(corrupt - head, last - seq)
-                parts = [[first, seq - 1, head], [seq + 1, last, tail]]
-                run.gaps[i : i + 1] = [p for p in parts if p[0] <= p[1]]
-                return True
-        return False
+        i = bisect.bisect_right(run.gaps, seq, key=_FIRST) - 1  # gaps stay in seq order
+        if i < 0:
+            return False
+        gap = run.gaps[i]
+        first, last, corrupt = gap
+        if seq > last:
+            return False
+        if seq == first:  # the gap shrinks from its start (a late run read in order)
+            if seq == last:
+                del run.gaps[i]
+            else:
+                gap[0], gap[2] = seq + 1, min(corrupt, last - seq)
+            return True
+        # The damaged segments stay with the first frames of the gap (SPEC 6).
+        head = min(corrupt, seq - first)
+        tail = min(corrupt - head, last - seq)
+        parts = [[first, seq - 1, head], [seq + 1, last, tail]]
+        run.gaps[i : i + 1] = [p for p in parts if p[0] <= p[1]]
+        return True
 
-    def _samples(self, run: RunState, seq: int, body: bytes, forced: bool = False) -> None:
-        if len(body) <= _SAMPLES_HEAD.size:
-            self.counters.malformed += 1
+    def _end_seen(self, run: RunState) -> None:
+        """END tells the run's length: frames already taken at seqs at or past it were
+        replies (SPEC 3.8), and the seqs missing there belong to no run frame."""
+        frames = run.end["frames"] if run.end is not None else 0
+        if run.high_seq < frames:
             return
-        _, _, _, _, stream, tick32 = _SAMPLES_HEAD.unpack_from(body)
-        info = run.streams.get(stream)
+        beyond = run.high_seq - frames + 1
+        gaps = []
+        for first, last, corrupt in run.gaps:
+            if last >= frames:
+                beyond -= last - max(first, frames) + 1
+            if first < frames:
+                gaps.append([first, min(last, frames - 1), min(corrupt, frames - first)])
+        if run.high_seq - frames < MAX_HELD:  # so a later copy is a duplicate (a few at most)
+            run.replies.update(s for s in range(frames, run.high_seq + 1)
+                               if not any(g[0] <= s <= g[1] for g in run.gaps))
+        run.received -= beyond
+        run.gaps = gaps
+        run.high_seq = frames - 1
+
+    @staticmethod
+    def _samples_fault(run: RunState, body: bytes) -> str | None:
+        """SPEC 4's checks on a SAMPLES body, in their order: too short (malformed),
+        a stream the descriptor does not define or of a type this release does not
+        know (undecodable), values that do not fill whole samples (malformed)."""
+        if len(body) < _MIN_SAMPLES_BODY:
+            return "malformed"
+        info = run.streams.get(body[wire.HEADER_SIZE])
         if info is None:
-            run.undecodable += 1
-            return
+            return "undecodable"
         if (len(body) - _SAMPLES_HEAD.size) % info.dtype.itemsize:
+            return "malformed"
+        return None
+
+    def _fault(self, run: RunState, fault: str) -> None:
+        if fault == "malformed":
             self.counters.malformed += 1
-            return
-        ref = run.ref_for(seq)
-        tick = wire.unwrap_tick(tick32, run.ref_tick if ref is None else ref)
-        if seq > run.ref_seq and not forced:  # a sample frame is as good a reference as an anchor
-            run.set_ref(seq, tick)
-        if self.arrival.mono_ns >= 0 and not forced:
-            self._time_samples(run, seq, tick, len(body), info)
+        else:
+            run.undecodable += 1
+
+    def _samples(self, run: RunState, seq: int, body: bytes, forced: bool = False,
+                 ref: int | None = None) -> bool:
+        """Decode a SAMPLES frame (ref: the reference's tick, if known); False if
+        it gave no samples (counted why)."""
+        fault = self._samples_fault(run, body)
+        if fault is not None:
+            self._fault(run, fault)
+            return False
+        _, _, _, _, stream, tick32 = _SAMPLES_HEAD.unpack_from(body)
+        info = run.streams[stream]
+        if ref is None:
+            ref = run.ref_for(seq)
+        tick = wire.unwrap_tick(tick32, run.nearest_ref(seq) if ref is None else ref)
+        n = (len(body) - _SAMPLES_HEAD.size) // info.dtype.itemsize
+        if not -TICK_MAX <= tick < TICK_MAX - (n - 1) * info.period_us:
+            self.counters.malformed += 1  # past any board's time (SPEC 5)
+            return False
+        if not forced:  # a sample frame is as good a reference as an anchor
+            run.known_tick(seq, tick)
+            if self.arrival.mono_ns >= 0:
+                self._time_samples(run, seq, tick, len(body), info)
         if self._pending:
             self._commit()
         batch = self._batch_for(run, info)
         batch.seqs.append(seq)
         batch.ticks.append(tick)
         batch.payloads.append(body[_SAMPLES_HEAD.size :])
+        return True
 
     def _typed(self, run: RunState, kind: int, seq: int, body: bytes, offset: int,
-               forced: bool = False) -> None:
+               forced: bool = False) -> bool:
+        """Decode a frame of a known kind; False if it gave nothing (counted why)."""
         if kind == wire.SAMPLES:
-            self._samples(run, seq, body, forced)
-            return
+            return self._samples(run, seq, body, forced)
         if kind == wire.DESCRIPTOR:
             self._descriptor(run, seq, body)
-            return
+            return True
         try:
             f = parse_body(kind, body[wire.HEADER_SIZE :])
         except MalformedFrame:
             self.counters.malformed += 1
-            return
+            return False
         if kind == wire.EVENTS:
             ref = run.ref_for(seq)
-            for ev in f["events"]:
-                tick = wire.unwrap_tick(ev["tick32"], run.ref_tick if ref is None else ref)
+            if ref is None:
+                ref = run.nearest_ref(seq)
+            ticks = [wire.unwrap_tick(ev["tick32"], ref) for ev in f["events"]]
+            if ticks and not -TICK_MAX <= min(ticks) <= max(ticks) < TICK_MAX:
+                self.counters.malformed += 1  # past any board's time (SPEC 5)
+                return False
+            for ev, tick in zip(f["events"], ticks):
                 run.events += 1
                 self.sink.event(run, seq, tick, ev["code"], ev["value"])
-        elif kind == wire.STATUS:
+            return bool(ticks)
+        if kind in _ANCHOR_KINDS and max(f.get("tick", 0), f.get("tx_tick", 0),
+                                         f.get("rx_tick", 0)) >= TICK_MAX:
+            self.counters.malformed += 1  # past any board's time (SPEC 5)
+            return False
+        if kind == wire.STATUS:
             self._anchor(run, seq, f["tick"], kind)
             self.sink.status(run, seq, f)
         elif kind == wire.END:
             self._anchor(run, seq, f["tick"], kind)
             run.end = f
+            self._end_seen(run)
             self.sink.reply(run, seq, kind, f)
         elif kind == wire.SYNC:
             self._anchor(run, seq, f["tx_tick"], kind)
             self.sink.reply(run, seq, kind, f)
         else:  # ACK, ERROR, INFO
             self.sink.reply(run, seq, kind, f)
+        return True
 
     def _anchor(self, run: RunState, seq: int, tick: int, kind: int) -> None:
-        if seq > run.ref_seq:
-            run.set_ref(seq, tick)
+        run.known_tick(seq, tick)
         if self.arrival.mono_ns >= 0:
             self.sink.timing(run, seq, kind, tick, self.arrival)
 
@@ -844,8 +1043,10 @@ class Decoder:
                 self.counters.malformed += 1
                 return
             last = None
+        if f["tick"] >= TICK_MAX:
+            self.counters.malformed += 1  # past any board's time (SPEC 5)
+            return
         self._anchor(run, seq, f["tick"], wire.DESCRIPTOR)
-        first = not run.described
         run.tick_hz = f["tick_hz"]
         run.fw = f"{f['fw_major']}.{f['fw_minor']}.{f['fw_patch']}"
         run.set_max_gap(f["max_gap_ms"])
@@ -874,7 +1075,14 @@ class Decoder:
             for info in infos:
                 run.streams[info.stream] = info
         run.described = True
-        if first:
+        if len(run.streams) + run.bad_streams >= run.n_streams:
+            self._announce(run)
+
+    def _announce(self, run: RunState) -> None:
+        """Tell the sink of the run's streams once, when every part of a split
+        descriptor has come (or at the end, with the parts that came)."""
+        if run.described and not run.announced:
+            run.announced = True
             self.sink.descriptor(run)
 
     def _hold(self, run: RunState, kind: int, seq: int, body: bytes, offset: int) -> None:
@@ -883,33 +1091,50 @@ class Decoder:
             self._force(run, run.held.pop(0))
 
     def _release_held(self, run: RunState, final: bool = False) -> None:
-        keep = []
-        for item in run.held:
-            if self._ready(run, item[0], item[1], item[2]):
-                self._typed_as(run, item)
-            elif final:
+        """Decode the held frames that became ready, in arrival order. At the end,
+        again while any became ready (one decoded may be the reference of another),
+        then force the rest."""
+        if not run.described and not final:
+            return  # nothing can be ready without a descriptor
+        while True:
+            keep = []
+            for item in run.held:
+                if self._ready(run, item[0], item[1], item[2]):
+                    self._typed_as(run, item)
+                else:
+                    keep.append(item)
+            progress = len(keep) < len(run.held)
+            run.held = keep
+            if not (final and progress and keep):
+                break
+        if final:
+            held, run.held = run.held, []
+            for item in held:
                 self._force(run, item)
-            else:
-                keep.append(item)
-        run.held = keep
 
     def _typed_as(self, run: RunState, item: tuple[int, int, bytes, int, Arrival],
-                  forced: bool = False) -> None:
+                  forced: bool = False) -> bool:
         """Decode a held frame as it arrived (its own arrival time and source)."""
         now = self.arrival
         self.arrival = item[4]
         try:
-            self._typed(run, item[0], item[1], item[2], item[3], forced)
+            return self._typed(run, item[0], item[1], item[2], item[3], forced)
         finally:
             self.arrival = now
 
     def _force(self, run: RunState, item: tuple[int, int, bytes, int, Arrival]) -> None:
-        """Decode a frame whose tick cannot be proven unambiguous; count it."""
-        if run.ref_seq < 0 or (item[0] == wire.SAMPLES and not run.described):
+        """Decode a frame that could not wait longer, against the reference nearest it;
+        count it uncertain if that is too far and it gave samples or events. SAMPLES
+        without a descriptor, or any frame without a reference, are undecodable. (An
+        EVENTS frame of a run never described is exact near a reference: RunState's
+        max_gap_us is then the largest a descriptor can carry.)"""
+        kind, seq = item[0], item[1]
+        if run.ref_seq < 0 or (kind == wire.SAMPLES and not run.described):
             run.undecodable += 1
             return
-        run.ticks_uncertain += 1
-        self._typed_as(run, item, forced=True)
+        exact = run.ref_for(seq) is not None
+        if self._typed_as(run, item, forced=not exact) and not exact:
+            run.ticks_uncertain += 1
 
     # ---- batches and closing ---------------------------------------------------
     def _flush(self) -> None:
@@ -951,10 +1176,20 @@ class Decoder:
             self.sink.samples(batch.run, info, seq, tick, raw)
 
     def _close_accounting(self, run: RunState) -> None:
+        """A row for every frame never received, at most MAX_UNSEEN_ROWS a run."""
+        left = MAX_UNSEEN_ROWS
         for first, last, corrupt in run.gaps:
-            for i, seq in enumerate(range(first, last + 1)):
-                self.sink.frame(run, seq, -1, "corrupt" if i < corrupt else "missing", -1, "",
-                                STREAM)
+            n = min(last - first + 1, left)
+            left -= n
+            if self._wants_frames:
+                frame = self.sink.frame
+                for i, seq in enumerate(range(first, first + n)):
+                    frame(run, seq, -1, "corrupt" if i < corrupt else "missing", -1, "", STREAM)
+        run.unlisted = self.missing(run) - (MAX_UNSEEN_ROWS - left)
+        if run.unlisted:
+            self.notes.append(f"board {run.board} run {run.run}: {run.unlisted:,} of its "
+                              f"{self.missing(run):,} frames never received are counted, not "
+                              f"listed one by one (a seq far past the others: damage?)")
 
     # ---- summary -------------------------------------------------------------
     def missing(self, run: RunState) -> int:

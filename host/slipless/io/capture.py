@@ -134,10 +134,29 @@ def is_capture(head: bytes) -> bool:
     return head.startswith(MAGIC)
 
 
+_NAME = MAGIC[:5]  # b"SLCAP": what survives a text-mode copy of the magic
+# What text-mode copies make of the magic's CR LF and ^Z, and the reason given.
+_MANGLED = ((_NAME + b"\n\x1a", "its CR LF became LF"),
+            (_NAME + b"\r\r\n\x1a", "its LF became CR LF"),
+            (_NAME + b"\r\n", "it stops at the ^Z after its CR LF"))
+
+
+def mangled(head: bytes, size: int) -> str | None:
+    """Why a file that starts like a capture is not one (a text-mode copy), or None.
+    head: the file's first bytes; size: its length."""
+    if not head.startswith(_NAME) or head.startswith(MAGIC):
+        return None
+    for start, why in _MANGLED:
+        if head.startswith(start) and (start[-1:] != b"\n" or size == len(start)):
+            return (f"not a usable capture: {why} (the file went through a text-mode copy; "
+                    "copy it again in binary mode)")
+    return None
+
+
 def read_header(f: BinaryIO) -> dict[str, Any]:
     head = f.read(_FILE_HEAD.size)
     if len(head) < _FILE_HEAD.size or not head.startswith(MAGIC):
-        raise CaptureError("not a slipless capture (bad magic)")
+        raise CaptureError(mangled(head, len(head)) or "not a slipless capture (bad magic)")
     _, version, n, crc = _FILE_HEAD.unpack(head)
     if version != VERSION:
         raise CaptureError(f"capture format version {version}; this slipless reads {VERSION}")

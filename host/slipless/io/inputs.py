@@ -59,6 +59,9 @@ def classify(path: Path, mirror: bool = False) -> Source:
             head = f.read(16)
     except OSError as exc:
         raise InputError(f"{path}: cannot read ({exc.strerror})") from exc
+    why = capture.mangled(head, size)
+    if why is not None:
+        raise InputError(f"{path}: {why}")
     if capture.is_capture(head):
         kind = "capture"
     elif head.startswith(BTSNOOP_MAGIC):

@@ -23,10 +23,19 @@ with what the decoder and the board said independently: obtained frames with
 the decoder's count of first copies, lost + dropped with its missing count,
 expected with END. Any difference is named as a discrepancy.
 
-Side tallies (not terms): corrupt = damaged segments (CRC failures) that came
-where this run's frames were missing, at most one per missing frame, whether
-or not the frame was recovered later; duplicates = extra copies over the link;
-mirror copies of frames already held are counted apart.
+Side tallies (not terms): corrupt = the frames never obtained that most likely
+arrived damaged, by SPEC section 6's one rule (the decoder's: in each gap left
+at the end, as many of its first frames as damaged segments came in its place,
+the gap split around every frame that filled it later), so it is the frames
+table's `corrupt` count; a gap's causes and evidence also weigh the damaged
+segments that came where frames later recovered were missing. duplicates =
+extra copies over the link; mirror copies of frames already held are counted
+apart.
+
+Frames at seqs at or past END's frame count are replies to commands, not frames
+of the run (SPEC 3.8); one of another kind there is a discrepancy. A stream of
+a sample type this release does not read (SPEC 4 allows it) has its frames
+received but its samples left out of the sample accounting, with a note.
 
 Samples, per stream (loss/streams.py): expected = END's per-stream total;
 obtained samples take their frame's term; the samples missing from the
@@ -36,7 +45,7 @@ obtained around them. Seconds = samples x the stream's period.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -54,7 +63,11 @@ TERMS = ("received", "recovered_resend", "recovered_mirror", "lost", "dropped_bo
 BROADCAST = 0xFFFF  # a command's board field meaning any board
 MAX_UNSEEN_TAIL = 1_000_000  # frames END may claim beyond the last seen (~14 h at 20/s) before
 # we call it damage rather than a run: the accounting holds a few bytes per frame
+# Frames of one run the account holds per seq (about 40 bytes each while it is made): a seq
+# past it (a frame whose CRC passed by chance carries any u32) is left out, named.
+MAX_ACCOUNT_FRAMES = 1 << 24  # 9.7 days of frames at 20 a second
 _REPLIES = (wire.SYNC, wire.ACK, wire.ERROR, wire.STATUS)  # the board answers commands after END
+_AFTER_END = _REPLIES + (wire.INFO,)  # kinds a board may send past END's count (SPEC 3.8)
 
 
 @dataclass
@@ -171,8 +184,16 @@ def _times(f: RunFacts, expected: int) -> np.ndarray:
 def _expected(f: RunFacts, notes: list[str], disc: list[str]) -> tuple[int, bool]:
     """Frames the run had (END's count, else up to the last seen) and whether END counts."""
     seen = f.copies.high()
+    if seen >= MAX_ACCOUNT_FRAMES:
+        seq = f.copies.columns().seq
+        far = seq[seq >= MAX_ACCOUNT_FRAMES]
+        disc.append(f"{far.size} frame(s) at seq {far[0]}-{far[-1]} lie past the "
+                    f"{MAX_ACCOUNT_FRAMES:,} frames accounted per run: left out (damage that "
+                    "passed the CRC?)")
+        seen = int(seq[seq < MAX_ACCOUNT_FRAMES].max(initial=-1))
     end = f.end
-    if end is not None and end["frames"] - seen - 1 > MAX_UNSEEN_TAIL:
+    if end is not None and (end["frames"] - seen - 1 > MAX_UNSEEN_TAIL
+                            or end["frames"] > MAX_ACCOUNT_FRAMES):
         disc.append(f"END says the run had {end['frames']} frames, far beyond the last seen "
                     f"(seq {seen}): not trusted")
         end = None
@@ -180,16 +201,23 @@ def _expected(f: RunFacts, notes: list[str], disc: list[str]) -> tuple[int, bool
         notes.append(f"end of run not seen: frames after seq {seen} cannot be counted")
         return seen + 1, False
     c = f.copies.columns()
-    beyond = c.seq >= end["frames"]
-    after = c.seq[beyond]
-    if after.size:
-        what = (f"{after.size} frame(s) came after END (seq {after[0]}-{after[-1]}; END says "
-                f"the run had {end['frames']})")
-        if np.isin(c.kind[beyond], _REPLIES).all():
-            notes.append(what + ": replies to commands, counted in the run")
-        else:
-            disc.append(what)
-    return max(seen + 1, end["frames"]), True
+    beyond = c.seq >= end["frames"]  # (taken before END came: the decoder moved them out too)
+    seqs = np.concatenate((c.seq[beyond], np.array([s for s, _ in f.after_end], np.int64)))
+    kinds = np.concatenate((c.kind[beyond], np.array([k for _, k in f.after_end], np.int16)))
+    odd = np.sort(seqs[~np.isin(kinds, _AFTER_END)])
+    if odd.size:
+        disc.append(f"{odd.size} frame(s) that are not replies came after END (seq {odd[0]}-"
+                    f"{odd[-1]}; END says the run had {end['frames']})")
+    return end["frames"], True
+
+
+def _spec_corrupt(st: Any, expected: int) -> np.ndarray:
+    """SPEC 6's corrupt frames: the first min(D, size) seqs of each gap the decoder
+    left (the frames table's `corrupt` rows)."""
+    mark = np.zeros(expected, dtype=bool)
+    for first, last, d in st.gaps:
+        mark[first : min(first + d, last + 1, expected)] = True
+    return mark
 
 
 def account_run(f: RunFacts, dec: Decoder, resends: list[Resend], downs: list[LinkDown]
@@ -204,8 +232,10 @@ def account_run(f: RunFacts, dec: Decoder, resends: list[Resend], downs: list[Li
     # where the damage sat inside a gap is a guess).
     none = np.zeros(expected, dtype=bool)
     sent, _ = _damaged(f, cls, none, whole_only=True)
-    alloc, problems = allocate((cls != RECEIVED) & ~sent, [s for s in f.status if s[0] < expected])
-    damaged, corrupt = _damaged(f, cls, alloc)
+    alloc, problems = allocate(cls != RECEIVED, [s for s in f.status if s[0] < expected], sent)
+    damaged, _ = _damaged(f, cls, alloc)
+    spec_corrupt = _spec_corrupt(st, expected)
+    corrupt = int(np.count_nonzero(spec_corrupt))
     disc += problems
     cls[(cls == LOST) & alloc] = DROPPED
     if f.status and np.any(cls[max(f.status)[0]:] == LOST):
@@ -222,22 +252,38 @@ def account_run(f: RunFacts, dec: Decoder, resends: list[Resend], downs: list[Li
     if never != dec.missing(st):
         disc.append(f"{never} frames never obtained, the decoder counted {dec.missing(st)} missing")
     times = _times(f, expected)
-    streams, stream_disc = account_streams(f, cls, expected)
+    streams, stream_disc = account_streams(_readable(f, notes), cls, expected)
     disc += stream_disc
     if st.undecodable:
-        notes.append(f"{st.undecodable} frames could not be decoded (no descriptor): their samples "
-                     "count as missing from the sample grid")
+        notes.append(f"{st.undecodable} frames could not be decoded (no descriptor, a stream it "
+                     "does not define, or a sample type this release does not read)")
     if st.ticks_uncertain:
-        notes.append(f"{st.ticks_uncertain} frames have uncertain board time")
+        notes.append(f"{st.ticks_uncertain} frames gave samples or events whose board time is "
+                     "uncertain (too far in seq from every tick reference)")
     acc = RunAccount(st.board, st.run, expected, end_seen, cls, times, terms, corrupt,
                      f.duplicates, f.mirror_copies, out_of_order, streams, [], checks, disc, notes)
-    acc.gaps = find_gaps(acc, f, alloc, damaged, downs)
+    acc.gaps = find_gaps(acc, f, alloc, damaged, spec_corrupt, downs)
     # Only status and command replies, nothing missing, no END: the board idling
     # outside a started run (e.g. its STATUS frames between boot and START).
     kinds = f.copies.columns().kind
     acc.idle = (not end_seen and not streams and bool(kinds.size) and terms["lost"] == 0
                 and terms["dropped_board"] == 0 and bool(np.isin(kinds, _REPLIES).all()))
     return acc
+
+
+def _readable(f: RunFacts, notes: list[str]) -> RunFacts:
+    """The facts the sample accounting can use: without END's totals of streams whose
+    sample type this release does not read (their frames are received, their samples
+    cannot be placed on a grid)."""
+    unread = f.state.bad_stream_ids - set(f.state.streams)
+    if not unread or f.end is None:
+        return f
+    totals = [t for t in f.end["totals"] if t["stream"] not in unread]
+    for t in f.end["totals"]:
+        if t["stream"] in unread:
+            notes.append(f"stream {t['stream']}: a sample type this release does not read; its "
+                         f"{t['samples']} samples (END) are left out of the sample accounting")
+    return replace(f, end={**f.end, "totals": totals})
 
 
 def analyse(facts: Facts, angle_stream: str | None = None, index_marker: int | None = None,
@@ -309,7 +355,9 @@ def _evidence(acc: RunAccount, f: RunFacts, a: int, b: int, alloc: np.ndarray,
 
 
 def find_gaps(acc: RunAccount, f: RunFacts, alloc: np.ndarray, damaged: np.ndarray,
-              downs: list[LinkDown]) -> list[Gap]:
+              corrupt: np.ndarray, downs: list[LinkDown]) -> list[Gap]:
+    """The gaps in what arrived live; damaged: where damaged segments came (for the
+    causes), corrupt: SPEC 6's corrupt frames (the gap's tally)."""
     m = acc.live_lost.astype(np.int8)
     edges = np.diff(np.concatenate(([0], m, [0])))
     t = acc.times_us
@@ -321,7 +369,7 @@ def find_gaps(acc: RunAccount, f: RunFacts, alloc: np.ndarray, damaged: np.ndarr
         before = _live(f, a - 1) if a > 0 else None
         after = _live(f, b + 1) if b + 1 < acc.expected else None
         out.append(Gap(
-            a, b, terms, int(np.count_nonzero(damaged[a : b + 1])),
+            a, b, terms, int(np.count_nonzero(corrupt[a : b + 1])),
             int(np.count_nonzero(alloc[a : b + 1])),
             int(t[a - 1]) if a > 0 and np.isfinite(t[a - 1]) else None,
             int(t[b + 1]) if b + 1 < t.size and np.isfinite(t[b + 1]) else None,

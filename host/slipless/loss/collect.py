@@ -360,6 +360,7 @@ class RunFacts:
     blocks: dict[int, Blocks] = field(default_factory=dict)  # stream -> its SAMPLES frames
     rates: dict[int, RateStream] = field(default_factory=dict)
     markers: list[tuple[int, int]] = field(default_factory=list)  # (tick, value) of marker events
+    after_end: list[tuple[int, int]] = field(default_factory=list)  # (seq, kind) past END's count
     _link_high: int = -1
     _dec_high: int = -1
 
@@ -437,6 +438,9 @@ class LossSink(NullSink):
         if not origin:  # the decoder's closing rows for frames never seen
             return
         f = self.facts_for(run)
+        if fate == "reply":  # past END's frame count: a reply, not a frame of the run
+            f.after_end.append((seq, kind))
+            return
         if fate == "duplicate":
             if origin == "mirror":
                 f.mirror_copies += 1
@@ -524,7 +528,7 @@ class CommandLog:
             if body[0] != (wire.VERSION << 4) | wire.COMMAND or len(body) < _RESEND.size:
                 continue
             _, board, run, _, opcode, _, first, last = _RESEND.unpack_from(body)
-            if opcode == wire.CMD_RESEND:
+            if opcode & 0x7F == wire.CMD_RESEND:  # plain or sealed (SPEC 3.9.1)
                 self.resends.append(Resend(board, run, first, last, arrival.mono_ns))
 
     def new_input(self) -> None:

@@ -49,24 +49,30 @@ def _pick(runs: list[tuple[int, int]], want: int) -> tuple[int, int]:
     return max(runs, key=lambda r: (r[1], r[0]))
 
 
-def _take(free: np.ndarray, alloc: np.ndarray, lo: int, hi: int, want: int) -> int:
-    runs = _runs(free & ~alloc, max(lo, 0), min(hi, free.size - 1))
+def _take(free: np.ndarray, alloc: np.ndarray, lo: int, hi: int, want: int,
+          avoid: np.ndarray | None = None) -> int:
+    """Place up to `want` drops in free[lo..hi], off `avoid` first, then on it."""
     taken = 0
-    while want > taken and runs:
-        start, n = _pick(runs, want - taken)
-        runs.remove((start, n))
-        k = min(n, want - taken)
-        alloc[start + n - k : start + n] = True
-        taken += k
+    for mask in ((free & ~avoid, free) if avoid is not None else (free,)):
+        runs = _runs(mask & ~alloc, max(lo, 0), min(hi, free.size - 1))
+        while want > taken and runs:
+            start, n = _pick(runs, want - taken)
+            runs.remove((start, n))
+            k = min(n, want - taken)
+            alloc[start + n - k : start + n] = True
+            taken += k
     return taken
 
 
-def allocate(free: np.ndarray, statuses: Iterable[tuple[int, int, int]]
-             ) -> tuple[np.ndarray, list[str]]:
+def allocate(free: np.ndarray, statuses: Iterable[tuple[int, int, int]],
+             avoid: np.ndarray | None = None) -> tuple[np.ndarray, list[str]]:
     """Mark the frames the board's counters say it dropped.
 
     free: per seq, True where the frame did not arrive live (a candidate).
     statuses: (seq, dropped, queue_high) of every STATUS frame obtained.
+    avoid: candidates taken only when a window has too few others (frames that
+    damaged segments most likely were: the counters are counts, where damage sat
+    is a guess, so a count is never left unplaced for it).
     Returns the mark and the contradictions found.
     """
     alloc = np.zeros(free.size, dtype=bool)
@@ -78,9 +84,9 @@ def allocate(free: np.ndarray, statuses: Iterable[tuple[int, int, int]]
             problems.append(f"the board's dropped counter fell from {prev_dropped} to {dropped} "
                             f"at STATUS seq {seq}")
         elif delta:
-            got = _take(free, alloc, prev_seq - q, seq - 1 - q, delta)
+            got = _take(free, alloc, prev_seq - q, seq - 1 - q, delta, avoid)
             if got < delta:  # queue_high may understate the queue: look wider
-                got += _take(free, alloc, prev_seq - 2 * q - 1, seq - 1, delta - got)
+                got += _take(free, alloc, prev_seq - 2 * q - 1, seq - 1, delta - got, avoid)
             if got < delta:
                 problems.append(f"the board counted {delta} dropped frames between STATUS seq "
                                 f"{max(prev_seq, 0)} and {seq}, but only {got} are missing there")

@@ -17,6 +17,7 @@ from typing import Any
 
 from slipless.decode.decoder import Arrival, Decoder, NullSink, RunState, Tee
 from slipless.io.capture import RX, TX, CaptureWriter
+from slipless.io.pieces import TX_SOURCE_BASE
 from slipless.protocol import wire
 from slipless.record.transports import Central, LinkError
 
@@ -172,6 +173,11 @@ class Recorder:
     async def _send(self, frame_len: int) -> None:
         data = self._enc.frame(frame_len)
         self.capture.write(TX, 0, data)
+        # the live decoder sees the laptop's commands as a capture's reader does: a frame
+        # that fills a gap is a resend only after a RESEND asked for it
+        self._feed()
+        self.decoder.feed(data, Arrival(TX_SOURCE_BASE, self.clock.mono_ns(), self.clock.wall_ns(),
+                                        "radio"))
         self.commands_sent += 1
         await self.central.write(data)
 
