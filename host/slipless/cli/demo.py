@@ -203,8 +203,8 @@ def _loss_lines(sc: Scenario, out: Path, decoded: Run) -> list[str]:
                          f"(dead sector {sc.cfg.dead_from_deg:.0f}-{sc.cfg.dead_to_deg:.0f})")
             if run["frames_expected"] < sc.frames:
                 lines.append(f"      the board built {sc.frames - run['frames_expected']} more "
-                             "after the last frame the radio delivered (replies to the recorder's "
-                             "last requests as it hung up): only the mirror has them")
+                             "after END: replies to the recorder's last commands, not frames of "
+                             "the run (SPEC 3.8)")
     if sc.cfg.link != DEFAULT_LINK:
         back = len(sc.queue_dropped & set(sc.truth.delivered))
         lines.append(f"      of the {sc.board_dropped:,} frames the board's queue dropped, {back:,} "
