@@ -29,7 +29,9 @@ from slipless.io.table_io import (
     Coded,
     Col,
     Const,
+    PerFrame,
     Spec,
+    Stepped,
     TableWriter,
     TickSeconds,
     check_format,
@@ -41,11 +43,14 @@ __all__ = ["FORMATS", "SCHEMAS", "SPECS", "TableSink", "read_decoded"]
 
 ROWS_PER_WRITE = 65_536  # single rows gathered before a writer formats them in bulk
 _RUN = (("board", INT), ("run", INT))
-_TIME = (("tick_us", INT, "us"), ("board_time_s", FLOAT, "s"))
+# Parquet encodings: times in seconds are smooth (byte stream split packs them small),
+# scaled samples have at most 65536 values per stream (a dictionary)
+_TIME = (("tick_us", INT, "us"), Col("board_time_s", FLOAT, "s", encoding="split"))
 
 SPECS: dict[str, Spec] = {s.name: s for s in (
     spec("samples", [*_RUN, ("stream", INT), ("name", STR), ("seq", INT), *_TIME,
-                     ("raw", INT, "count"), ("value", FLOAT, "see unit"), ("unit", STR),
+                     ("raw", INT, "count"), Col("value", FLOAT, "see unit", encoding="dictionary"),
+                     ("unit", STR),
                      ("raw_float", FLOAT)]),
     spec("events", [*_RUN, ("seq", INT), *_TIME, ("event", STR), ("code", INT),
                     ("value", INT)]),
@@ -85,9 +90,13 @@ def read_decoded(folder: Path, name: str, columns: Sequence[str]) -> dict[str, n
 
 
 _CODED_BITS = 16  # sample types of at most this many bits are formatted once per value
-
+SAMPLE_CHUNK = 1 << 17  # samples gathered, in call order, before the writer gets them
+MAX_CODE_BLOCKS = 16  # stream descriptions sharing one code space (a few MB of text)
+_MISSING_KIND = 16  # frame kinds are 4 bits: this code is a frame that never arrived
 
 _KIND_NAMES = wire.KIND_NAMES
+_KIND_TEXT = np.array([_KIND_NAMES.get(k) or f"kind{k}" for k in range(16)] + [None],
+                      dtype=object)
 
 
 class _Rows:
@@ -105,8 +114,227 @@ class _Rows:
 
     def flush(self) -> None:
         if self.rows:
-            self.writer.write([list(c) for c in zip(*self.rows)])
+            self.writer.write(self.columns())
             self.rows.clear()  # the same list: the per-frame callbacks hold it
+
+    def columns(self) -> list[Any]:
+        return [list(c) for c in zip(*self.rows)]
+
+
+class _Names:
+    """Texts seen in one column, each given a code in order of appearance."""
+
+    def __init__(self, *first: str | None) -> None:
+        self.codes: dict[str | None, int] = {t: i for i, t in enumerate(first)}
+
+    def coded(self, texts: Sequence[str | None], name: str) -> Coded:
+        codes = self.codes
+        for t in dict.fromkeys(texts):  # the new ones, in order of appearance
+            codes.setdefault(t, len(codes))
+        idx = np.fromiter(map(codes.__getitem__, texts), np.int64, len(texts))
+        return Coded(idx, np.array(list(codes), dtype=object), (name, len(codes)))
+
+
+class _FrameRows(_Rows):
+    """The frames table: kind, fate and origin as codes into their few texts."""
+
+    def __init__(self, writer: TableWriter) -> None:
+        super().__init__(writer)
+        self._fates = _Names()
+        self._origins = _Names(None)
+
+    def columns(self) -> list[Any]:
+        board, run, seq, kind, fate, origin, source, offset, wall = zip(*self.rows)
+        kinds = np.array(kind, dtype=np.int64)
+        return [list(board), list(run), list(seq), Coded(kinds, _KIND_TEXT, "kind"),
+                self._fates.coded(fate, "fate"), self._origins.coded(origin, "origin"),
+                list(source), list(offset), list(wall), list(wall)]
+
+
+class _TimingRows(_Rows):
+    def columns(self) -> list[Any]:
+        board, run, seq, kind, tick, source, mono, wall = zip(*self.rows)
+        return [list(board), list(run), list(seq),
+                Coded(np.array(kind, dtype=np.int64), _KIND_TEXT, "kind"), list(tick),
+                list(source), list(mono), list(wall), list(wall)]
+
+
+class _Streams:
+    """Every stream description seen, each with a code (the frames' form names a
+    frame's stream by it), and the code space of the <= 16-bit ones: each such
+    description's raw values, scaled values and unit as one block of codes."""
+
+    def __init__(self) -> None:
+        self.index: dict[tuple[Any, ...], int] = {}
+        self.infos: list[StreamInfo] = []
+        self.blocks: dict[tuple[Any, ...], int] = {}  # (type, scale, offset, unit) -> first code
+        self._raw: list[np.ndarray] = []
+        self._value: list[np.ndarray] = []
+        self._unit: list[np.ndarray] = []
+        self.space = 0  # the code space's number: its texts are kept under it
+        self._entries: dict[int, tuple[StreamInfo, int, int | None]] = {}
+        self.tables: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None
+        self.columns: tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray] | None = None
+
+    def known(self, info: StreamInfo) -> tuple[int, int | None] | None:
+        """entry(info) if it was asked for before (the decoder keeps its objects)."""
+        got = self._entries.get(id(info))
+        return (got[1], got[2]) if got is not None and got[0] is info else None
+
+    def entry(self, info: StreamInfo) -> tuple[int, int | None]:
+        """(the description's code, what turns its raw values into codes: None for
+        wider and float samples), kept per description object (called per piece)."""
+        got = self.known(info)
+        if got is not None:
+            return got
+        code = self.code(info)
+        shift = self._shift(info) if self.coded(info) else None
+        self._entries[id(info)] = (info, code, shift)
+        return code, shift
+
+    def code(self, info: StreamInfo) -> int:
+        key = (info.stream, info.type, info.flags, info.period_us, info.scale, info.offset,
+               info.name, info.unit)
+        got = self.index.get(key)
+        if got is None:
+            got = self.index[key] = len(self.infos)
+            self.infos.append(info)
+            self.columns = None
+        return got
+
+    def per_stream(self) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """stream id, name, unit and period of every code."""
+        if self.columns is None:
+            infos = self.infos
+            self.columns = (np.array([i.stream for i in infos], np.int64),
+                            np.array([i.name for i in infos], dtype=object),
+                            np.array([i.unit for i in infos], dtype=object),
+                            np.array([i.period_us for i in infos], np.int64))
+        return self.columns
+
+    @staticmethod
+    def coded(info: StreamInfo) -> bool:
+        dt = info.dtype
+        return dt.kind in "iu" and dt.itemsize * 8 <= _CODED_BITS
+
+    def full(self, info: StreamInfo) -> bool:
+        """A new block would not fit this code space."""
+        return (self.coded(info) and self._key(info) not in self.blocks
+                and len(self.blocks) >= MAX_CODE_BLOCKS)
+
+    def reset(self) -> None:
+        self.blocks, self._raw, self._value, self._unit = {}, [], [], []
+        self.tables = None
+        self._entries = {}
+        self.space += 1
+
+    @staticmethod
+    def _key(info: StreamInfo) -> tuple[Any, ...]:
+        return (info.type, info.scale, info.offset, info.unit)
+
+    def _shift(self, info: StreamInfo) -> int:
+        """What a raw value of info's stream adds to become its code in this space
+        (its description's block, made on first use)."""
+        key = self._key(info)
+        base = self.blocks.get(key)
+        dt = info.dtype
+        lo = int(np.iinfo(dt).min)
+        if base is None:
+            base = self.blocks[key] = sum(len(r) for r in self._raw)
+            values = np.arange(lo, int(np.iinfo(dt).max) + 1, dtype=np.int64)
+            self._raw.append(values)
+            self._value.append(values.astype(np.float64) * info.scale + info.offset)
+            self._unit.append(np.full(len(values), info.unit, dtype=object))
+            self.tables = None
+            self.space += 1
+        return base - lo
+
+    def values(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        if self.tables is None:
+            self.tables = (np.concatenate(self._raw), np.concatenate(self._value),
+                           np.concatenate(self._unit))
+        return self.tables
+
+
+class _Samples:
+    """The samples table: the decoder's pieces in their frames' form, gathered in
+    call order (streams interleaved as they came) into chunks of about
+    SAMPLE_CHUNK samples of one run, each written as one batch."""
+
+    def __init__(self, writer: TableWriter) -> None:
+        self.writer = writer
+        self.streams = _Streams()
+        self.run: RunState | None = None
+        # per piece: description's code, what makes its raw values codes (None: not
+        # coded), seqs, first ticks, counts, raw values
+        self.pieces: list[tuple[int, int | None, np.ndarray, np.ndarray, np.ndarray,
+                                np.ndarray]] = []
+        self.rows = 0
+
+    def add(self, run: RunState, info: StreamInfo, seqs: np.ndarray, ticks: np.ndarray,
+            counts: np.ndarray, raw: np.ndarray) -> None:
+        if self.run is not None and run is not self.run:
+            self.flush()
+        streams = self.streams
+        known = streams.known(info)
+        if known is None:
+            if streams.full(info):  # a new block would not fit this code space
+                self.flush()
+                streams.reset()
+            known = streams.entry(info)
+        self.run = run
+        self.pieces.append((known[0], known[1], seqs, ticks, counts, raw))
+        self.rows += raw.size
+        if self.rows >= SAMPLE_CHUNK:
+            self.flush()
+
+    def flush(self) -> None:
+        if not self.pieces or self.run is None:
+            return
+        run, pieces = self.run, self.pieces
+        self.pieces, self.rows = [], 0
+        streams = self.streams
+        frames = np.repeat(np.array([p[0] for p in pieces], dtype=np.int64),
+                           [len(p[2]) for p in pieces])
+        seqs, ticks, counts = (np.concatenate([p[i] for p in pieces]) for i in (2, 3, 4))
+        sid, name, unit, period = streams.per_stream()
+        known = len(streams.infos)  # the tables grow with new descriptions: their name
+        tick = Stepped(ticks, period[frames], counts)
+        cols = [Const(run.board), Const(run.run), PerFrame(Coded(frames, sid, ("sid", known)),
+                                                           counts),
+                PerFrame(Coded(frames, name, ("name", known)), counts), PerFrame(seqs, counts),
+                tick, TickSeconds(tick, run.tick_hz)]
+        if all(p[1] is not None for p in pieces):
+            raws, values, units = streams.values()
+            codes = np.concatenate([p[5] for p in pieces]).astype(np.int32)
+            codes += np.repeat(np.array([p[1] for p in pieces], dtype=np.int32),
+                               [p[5].size for p in pieces])
+            space = streams.space
+            cols += [Coded(codes, raws, ("raw", space)), Coded(codes, values, ("value", space)),
+                     Coded(codes, units, ("unit", space)), Const(None)]
+        else:
+            cols += self._plain(pieces, frames, counts, unit)
+        self.writer.write(cols)
+
+    def _plain(self, pieces: Sequence[tuple[int, Any, Any, Any, Any, np.ndarray]],
+               frames: np.ndarray, counts: np.ndarray, unit: np.ndarray) -> list[Any]:
+        """raw, value, unit and raw_float of a chunk holding a stream of wider or
+        float samples: float samples go in raw_float (raw is empty there)."""
+        has_float = any(p[5].dtype.kind == "f" for p in pieces)
+        raws, values, floats = [], [], []
+        for p in pieces:
+            info, raw = self.streams.infos[p[0]], p[5]
+            as_float = raw.astype(np.float64)
+            values.append(as_float * info.scale + info.offset)
+            if raw.dtype.kind == "f":
+                raws.append(np.full(raw.size, np.nan))
+                floats.append(as_float)
+            else:
+                raws.append(as_float if has_float else raw.astype(np.int64))
+                floats.append(np.full(raw.size, np.nan))
+        units = Coded(frames, unit, ("units", len(self.streams.infos)))
+        return [np.concatenate(raws), np.concatenate(values), PerFrame(units, counts),
+                np.concatenate(floats) if has_float else Const(None)]
 
 
 class TableSink:
@@ -120,10 +348,12 @@ class TableSink:
         self._t = {name: open_table(out_dir, s, fmt, self._part_metadata, self._background)
                    for name, s in SPECS.items()}
         self.paths = {name: getattr(t, "path", out_dir / name) for name, t in self._t.items()}
-        self._rows = {name: _Rows(t) for name, t in self._t.items() if name != "samples"}
+        kinds = {"frames": _FrameRows, "timing": _TimingRows}
+        self._rows = {name: kinds.get(name, _Rows)(t) for name, t in self._t.items()
+                      if name != "samples"}
+        self._samples = _Samples(self._t["samples"])
         self._frame_rows = self._rows["frames"].rows
         self._timing_rows = self._rows["timing"].rows
-        self._codes: dict[tuple[int, float, float], tuple[np.ndarray, np.ndarray, int]] = {}
 
     def _part_metadata(self, key: tuple[Any, ...]) -> dict[str, str]:
         run = self._runs.get((int(key[0]), int(key[1]))) if len(key) >= 2 else None
@@ -146,40 +376,15 @@ class TableSink:
             self._rows["streams"].add((run.board, run.run, s.stream, s.name, s.unit, chr(s.type),
                                        int(s.is_state), s.period_us, s.scale, s.offset))
 
-    def _coded(self, info: StreamInfo) -> tuple[np.ndarray, np.ndarray, int] | None:
-        """Every raw value a <= 16-bit stream can send, and its scaled value."""
-        dt = info.dtype
-        if dt.kind not in "iu" or dt.itemsize * 8 > _CODED_BITS:
-            return None
-        key = (info.type, info.scale, info.offset)
-        got = self._codes.get(key)
-        if got is None:
-            lo = int(np.iinfo(dt).min)
-            raw = np.arange(lo, int(np.iinfo(dt).max) + 1, dtype=np.int64)
-            got = self._codes[key] = (raw, raw.astype(np.float64) * info.scale + info.offset, lo)
-        return got
+    def sample_frames(self, run: RunState, info: StreamInfo, seqs: np.ndarray,
+                      ticks: np.ndarray, counts: np.ndarray, raw: np.ndarray) -> None:
+        self._runs[run.key] = run
+        self._samples.add(run, info, seqs, ticks, counts, raw)
 
     def samples(self, run: RunState, info: StreamInfo, seq: np.ndarray, tick: np.ndarray,
                 raw: np.ndarray) -> None:
-        self._runs[run.key] = run
-        coded = self._coded(info)
-        raw_col: Any
-        value_col: Any
-        raw_float: Any = Const(None)
-        if coded is not None:
-            raws, values, lo = coded
-            codes = raw.astype(np.int32) - lo
-            raw_col = Coded(codes, raws, ("raw", info.type))
-            value_col = Coded(codes, values, ("value", info.type, info.scale, info.offset))
-        else:
-            value_col = raw.astype(np.float64) * info.scale + info.offset
-            if raw.dtype.kind == "f":  # float samples: raw_float, so raw stays an int column
-                raw_col, raw_float = Const(None), raw.astype(np.float64)
-            else:
-                raw_col = raw.astype(np.int64)
-        self._t["samples"].write([
-            Const(run.board), Const(run.run), Const(info.stream), Const(info.name), seq, tick,
-            TickSeconds(tick, run.tick_hz), raw_col, value_col, Const(info.unit), raw_float])
+        """Samples one by one (each its own frame of one)."""
+        self.sample_frames(run, info, seq, tick, np.ones(len(seq), dtype=np.int64), raw)
 
     def event(self, run: RunState, seq: int, tick: int, code: int, value: int) -> None:
         name = wire.EVENT_NAMES.get(code, f"code{code}")
@@ -201,20 +406,19 @@ class TableSink:
         # Called for every frame: one tuple appended, the rest is done per block.
         rows = self._frame_rows
         if kind < 0:  # a frame that never arrived: nothing is known but its number
-            rows.append((run.board, run.run, seq, None, fate, None, None, None, None, None))
+            rows.append((run.board, run.run, seq, _MISSING_KIND, fate, None, None, None, None))
         else:
-            wall = arrival.wall_ns if arrival.wall_ns >= 0 else None
-            rows.append((run.board, run.run, seq, _KIND_NAMES.get(kind) or f"kind{kind}", fate,
-                         origin or None, arrival.source, offset if offset >= 0 else None, wall,
-                         wall))
+            rows.append((run.board, run.run, seq, kind, fate, origin or None, arrival.source,
+                         offset if offset >= 0 else None,
+                         arrival.wall_ns if arrival.wall_ns >= 0 else None))
         if len(rows) >= ROWS_PER_WRITE:
             self._rows["frames"].flush()
 
     def timing(self, run: RunState, seq: int, kind: int, tick: int, arrival: Arrival) -> None:
         rows = self._timing_rows
-        wall = arrival.wall_ns if arrival.wall_ns >= 0 else None
-        rows.append((run.board, run.run, seq, _KIND_NAMES[kind], tick, arrival.source,
-                     arrival.mono_ns if arrival.mono_ns >= 0 else None, wall, wall))
+        rows.append((run.board, run.run, seq, kind, tick, arrival.source,
+                     arrival.mono_ns if arrival.mono_ns >= 0 else None,
+                     arrival.wall_ns if arrival.wall_ns >= 0 else None))
         if len(rows) >= ROWS_PER_WRITE:
             self._rows["timing"].flush()
 
@@ -227,6 +431,7 @@ class TableSink:
             self._rows["runs"].add((r.board, r.run, r.fw or None, r.tick_hz, r.received,
                                     missing(r) - corrupt(r), corrupt(r), r.duplicates, r.samples,
                                     r.events, reason, r.ticks_uncertain, r.undecodable))
+        self._samples.flush()
         for rows in self._rows.values():
             rows.flush()
         try:

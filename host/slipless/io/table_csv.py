@@ -1,14 +1,19 @@
 """CSV text for table_io: built in bulk with numpy, not row by row.
 
-Every field becomes little-endian 32-bit words of ASCII padded with NUL bytes,
-a batch is one (rows x words) matrix, and dropping the NUL bytes leaves the
-lines. Floats are Python's repr (the shortest text that reads back to the same
+Floats are Python's repr (the shortest text that reads back to the same
 float); text is quoted as the csv module quotes it; lines end in CRLF as the
-csv module's do.
+csv module's do. Two ways to the same bytes:
+
+- any batch: every field becomes little-endian 32-bit words of ASCII padded
+  with NUL bytes, the batch is one (rows x words) matrix, and dropping the
+  NUL bytes leaves the lines;
+- samples in their frames' form (FramesText): each row's pieces are copied
+  straight to their place in the output, so no padding has to be dropped.
 """
 
 from __future__ import annotations
 
+import threading
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
@@ -25,19 +30,23 @@ from slipless.io.table_io import (
     Coded,
     Column,
     Const,
+    PerFrame,
     Spec,
+    Stepped,
     TableWriter,
     TickSeconds,
     column_rows,
     plain_values,
-    run_now,
+    slice_batch,
+    ticks_of,
 )
 
 CSV_CHUNK_ROWS = 1 << 17  # rows formatted at once: the word matrix stays near 12 MB
-CSV_WRITE_BYTES = 4 << 20  # formatted text handed to the file at once
 _W = np.dtype("<u4")
 _P10 = np.array([10**i for i in range(19)], dtype=np.int64)
 MAX_EXACT = 10**15  # |int| below which n / 10**k has <= 15 digits: its exact decimal is repr
+_NS_PER_S = 10**9
+_NAT = -(2**63)  # numpy's "not a time": a missing laptop time
 
 
 def _words(strings: Sequence[bytes]) -> np.ndarray:
@@ -57,6 +66,7 @@ _GROUP = _words([b"%04d" % i for i in range(10_000)]
 _TRIPLE = _words([b"%03d" % i for i in range(1000)]
                  + [(b"%03d" % i).rstrip(b"0") for i in range(1000)])[:, 0]
 _DOT, _DOT0, _MINUS = (_words([b"."])[0, 0], _words([b".0"])[0, 0], _words([b"-"])[0, 0])
+_ZULU = _words([b"Z"])[0, 0]
 
 
 def _int_words(a: np.ndarray) -> list[Any]:
@@ -119,6 +129,24 @@ def _tick_words(tick: np.ndarray, hz: int) -> list[Any] | None:
     return cols
 
 
+def _utc_words(ns: np.ndarray) -> list[Any]:
+    """ISO 8601 UTC with nanoseconds (2026-05-09T07:35:25.123456789Z) as word
+    columns; _NAT is a missing time (an empty cell). The date and time of day
+    are numpy's text for each distinct second, the nanoseconds are appended."""
+    missing = ns == _NAT
+    sec = np.where(missing, 0, ns) // _NS_PER_S
+    frac = np.where(missing, 0, ns) - sec * _NS_PER_S
+    uniq, where = np.unique(sec, return_inverse=True)
+    days = np.datetime_as_string(uniq.astype("datetime64[s]"), unit="s", timezone="UTC")
+    head = _words([s[:-1].encode() + b"." for s in days.tolist()])[where.reshape(-1)]
+    cols = [*head.T, _TRIPLE[frac // 1_000_000], _TRIPLE[(frac // 1000) % 1000],
+            _TRIPLE[frac % 1000], np.full(ns.shape, _ZULU, dtype=_W)]
+    if missing.any():
+        keep = ~missing
+        cols = [c * keep for c in cols]
+    return cols
+
+
 def _csv_text(s: str) -> str:
     """A text cell as csv.writer writes it (QUOTE_MINIMAL). A NUL cannot be
     written (the NUL bytes are the padding), so it becomes U+FFFD."""
@@ -129,7 +157,7 @@ def _csv_text(s: str) -> str:
     return s
 
 
-def _cell_texts(values: Any, kind: str) -> list[bytes]:
+def cell_texts(values: Any, kind: str) -> list[bytes]:
     """Each value's CSV text (the general path: one Python call per value)."""
     if isinstance(values, np.ndarray):
         if kind == UTC:
@@ -171,6 +199,29 @@ def _plain_int_array(values: Any) -> np.ndarray | None:
         return None  # missing values (None): the general path
 
 
+def _masked_ints(values: Any) -> tuple[np.ndarray, np.ndarray] | None:
+    """Python ints with None as (int64 values, missing); None if they do not fit."""
+    if isinstance(values, np.ndarray) and values.dtype.kind != "O":
+        return None
+    objs = np.array(values, dtype=object).reshape(-1)
+    missing: np.ndarray = objs == None  # noqa: E711 (elementwise, not identity)
+    try:
+        return np.where(missing, 0, objs).astype(np.int64), missing
+    except (TypeError, ValueError, OverflowError):
+        return None
+
+
+def _utc_ns(values: Any) -> np.ndarray | None:
+    """Laptop times (ints, None where unknown) as int64 with _NAT for None."""
+    if isinstance(values, np.ndarray) and values.dtype.kind in "iu":
+        return values.astype(np.int64, copy=False)
+    ints = _masked_ints(values)
+    if ints is None:
+        return None
+    ns, missing = ints
+    return np.where(missing, _NAT, ns)
+
+
 def csv_header(spec: Spec) -> bytes:
     return (",".join(_csv_text(c) for c in spec.names) + "\r\n").encode()
 
@@ -178,38 +229,33 @@ def csv_header(spec: Spec) -> bytes:
 def csv_rows(spec: Spec, cols: Sequence[Column]) -> bytes:
     """The CSV lines (no header) a writer of `spec` writes for one batch."""
     n = max((column_rows(c) for c in cols), default=0)
-    form = _CsvFormat(spec)
-    return b"".join(form.lines([_slice(c, lo, min(n, lo + CSV_CHUNK_ROWS)) for c in cols],
-                               min(n, lo + CSV_CHUNK_ROWS) - lo)
-                    for lo in range(0, n, CSV_CHUNK_ROWS))
+    return b"".join(_CsvFormat(spec).text(cols, n)) if n > 0 else b""
 
 
 class CsvWriter(TableWriter):
+    """One CSV file. With `background`, batches are formatted on its lanes, two
+    at a time, and written in order; the caller must not change a batch's
+    arrays after handing it over."""
+
     def __init__(self, path: Path, spec: Spec, background: Background | None = None) -> None:
         super().__init__(spec)
         self.path = path
         self._file = path.open("wb")
-        self._run = background.lane() if background is not None else run_now
-        self._text: list[bytes] = [csv_header(spec)]
-        self._text_bytes = 0
+        self._file.write(csv_header(spec))
+        self._submit = background.in_order() if background is not None else None
         self._form = _CsvFormat(spec)
 
-    def _put(self, text: bytes) -> None:
-        self._text.append(text)
-        self._text_bytes += len(text)
-        if self._text_bytes >= CSV_WRITE_BYTES:
-            self._run(self._file.writelines, self._text)
-            self._text, self._text_bytes = [], 0
-
     def _write(self, cols: Sequence[Column], n: int) -> None:
-        for lo in range(0, n, CSV_CHUNK_ROWS):
-            hi = min(n, lo + CSV_CHUNK_ROWS)
-            self._put(self._form.lines([_slice(c, lo, hi) for c in cols], hi - lo))
+        if self._submit is None:
+            self._file.writelines(self._form.text(cols, n))
+        else:
+            self._submit(self._form.text, cols, n, self._file.writelines)
 
     def close(self) -> None:
-        self._run(self._file.writelines, self._text)
-        self._text = []
-        self._run(self._file.close)
+        if self._submit is None:
+            self._file.close()
+        else:
+            self._submit(list, (), lambda _: self._file.close())
 
 
 class _CsvFormat:
@@ -217,18 +263,38 @@ class _CsvFormat:
 
     def __init__(self, spec: Spec) -> None:
         self.spec = spec
-        self._luts: dict[tuple[Any, ...], np.ndarray] = {}
+        self._kinds = [c.kind for c in spec.columns]
+        self._seps = [b"\r\n" if i == len(spec.columns) - 1 else b"," for i in
+                      range(len(spec.columns))]
+        self._luts: dict[tuple[Any, ...], Any] = {}  # texts of codes by their columns' keys
+        self._lock = threading.Lock()  # lanes share the cache of value texts
+        self._frames: Any = None  # the frames' form path, made on first use
+
+    def text(self, cols: Sequence[Column], n: int) -> list[Any]:
+        """The lines of a batch, as bytes-like pieces in order."""
+        if self._frames is None:
+            self._frames = FramesText(self)
+        fast = self._frames.text(cols, n)
+        if fast is not None:
+            return fast
+        return [self.lines(slice_batch(cols, lo, min(n, lo + CSV_CHUNK_ROWS)),
+                           min(n, lo + CSV_CHUNK_ROWS) - lo) for lo in range(0, n, CSV_CHUNK_ROWS)]
 
     def lines(self, cols: Sequence[Column], n: int) -> bytes:
+        """The lines of a batch through the word matrix (any columns)."""
+        m = self.matrix(cols, self._kinds, self._seps, n)
+        return m.tobytes().translate(None, b"\0")  # faster than a boolean mask here
+
+    def matrix(self, cols: Sequence[Column], kind: Sequence[str], sep: Sequence[bytes],
+               n: int) -> np.ndarray:
+        """(n, k) words of each row's cells, each followed by its separator."""
         pieces: list[Any] = []  # bytes (alike in every row), word columns or (n, k) blocks
         last = len(cols) - 1
-        kind = [c.kind for c in self.spec.columns]
-        sep = [b"\r\n" if i == last else b"," for i in range(len(cols))]
         i = 0
         while i <= last:
             col = cols[i]
             if isinstance(col, Const):
-                pieces.append(_cell_texts([col.value], kind[i])[0] + sep[i])
+                pieces.append(cell_texts([col.value], kind[i])[0] + sep[i])
             elif isinstance(col, Coded):
                 # Coded columns sharing their codes, and the constants after them, become
                 # one table of ready-made text: one gather per row for all of them.
@@ -238,11 +304,11 @@ class _CsvFormat:
                 k = j
                 while k <= last and isinstance(cols[k], Const):
                     k += 1
-                pieces.append(self._lut(cols[i:k], kind[i:k], sep[i:k])[col.codes])
+                pieces.append(self.lut(cols[i:k], kind[i:k], sep[i:k], col.codes)[col.codes])
                 i = k
                 continue
             else:
-                pieces.append(self._field(col, kind[i]))
+                pieces.append(self._field(col, kind[i], n))
                 pieces.append(sep[i])
             i += 1
         blocks: list[Any] = []
@@ -255,53 +321,517 @@ class _CsvFormat:
             text = b""
             blocks += p if isinstance(p, list) else [p]
         blocks += _const_words(text)
-        m = np.column_stack([b if getattr(b, "shape", ()) else np.broadcast_to(_W.type(b), (n,))
-                             for b in blocks])  # faster than filling a matrix column by column
-        return m.tobytes().translate(None, b"\0")  # faster than a boolean mask here
+        if not blocks:
+            return np.zeros((n, 0), dtype=_W)
+        return np.column_stack([b if getattr(b, "shape", ()) else np.broadcast_to(_W.type(b), (n,))
+                                for b in blocks])  # faster than filling a matrix column by column
 
-    def _field(self, col: Column, kind: str) -> list[Any]:
+    def _field(self, col: Column, kind: str, n: int) -> list[Any]:
         if isinstance(col, TickSeconds):
-            tick = np.asarray(col.tick, dtype=np.int64)
+            tick = ticks_of(col.tick)
             fast = _tick_words(tick, col.tick_hz)
             if fast is not None:
                 return fast
-            col = plain_values(col, len(tick), FLOAT)
+            col = plain_values(TickSeconds(tick, col.tick_hz), n, FLOAT)
+        elif isinstance(col, PerFrame) and isinstance(col.values, Coded):  # a table per code
+            codes = np.repeat(col.values.codes, col.counts)
+            coded = Coded(codes, col.values.values, col.values.key)
+            return [self.lut([coded], [kind], [b""], codes)[codes]]
+        elif isinstance(col, (PerFrame, Stepped)):
+            col = plain_values(col, n, kind)
         if kind == INT:
             ints = _plain_int_array(col)
             if ints is not None:
                 return _int_words(ints)
-        return list(_words(_cell_texts(col, kind)).T)
+            masked = _masked_ints(col)
+            if masked is not None:
+                keep = ~masked[1]
+                return [w * keep for w in _int_words(masked[0])]
+        if kind == UTC:
+            ns = _utc_ns(col)
+            if ns is not None:
+                return _utc_words(ns)
+        return list(_words(cell_texts(col, kind)).T)
 
-    def _lut(self, cols: Sequence[Column], kinds: Sequence[str], seps: Sequence[bytes]
-             ) -> np.ndarray:
-        """Words of each code's text: its Coded cells, then the constants after them."""
-        keys = tuple((c.key, k, s) if isinstance(c, Coded) else ("const", c.value, k, s)
+    @staticmethod
+    def _lut_key(cols: Sequence[Column], kinds: Sequence[str], seps: Sequence[bytes]
+                 ) -> tuple[Any, ...] | None:
+        if not all(not isinstance(c, Coded) or c.key is not None for c in cols):
+            return None
+        return tuple((c.key, k, s) if isinstance(c, Coded) else ("const", c.value, k, s)
                      for c, k, s in zip(cols, kinds, seps))
-        cacheable = all(not isinstance(c, Coded) or c.key is not None for c in cols)
-        lut = self._luts.get(keys) if cacheable else None
-        if lut is None:
-            texts: list[bytes] | None = None
-            tail = b""
-            for c, k, s in zip(cols, kinds, seps):
-                if isinstance(c, Coded):
-                    cells = [t + s for t in _cell_texts(np.asarray(c.values), k)]
-                    texts = cells if texts is None else [a + b for a, b in zip(texts, cells)]
+
+    def _keep(self, key: tuple[Any, ...] | None, lut: Any) -> None:
+        if key is not None:
+            with self._lock:
+                if len(self._luts) >= MAX_LUTS:  # a new code space: drop the oldest
+                    self._luts.pop(next(iter(self._luts)))
+                self._luts[key] = lut
+
+    def lut(self, cols: Sequence[Column], kinds: Sequence[str], seps: Sequence[bytes],
+            codes: np.ndarray) -> np.ndarray:
+        """Words of each code's text: its Coded cells, then the constants after them;
+        made for the codes asked for so far (a stream's samples use a few thousand
+        of its 65536 raw values)."""
+        return self._texts("words", _WordTexts, cols, kinds, seps, codes)[0]
+
+    def right_lut(self, cols: Sequence[Column], kinds: Sequence[str], seps: Sequence[bytes],
+                  codes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """lut's texts right-aligned in one width (void items: NUL bytes, then the
+        text) and their lengths."""
+        return self._texts("right", _RightTexts, cols, kinds, seps, codes)
+
+    def _texts(self, form: str, kind: Any, cols: Sequence[Column], kinds: Sequence[str],
+               seps: Sequence[bytes], codes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        key = self._lut_key(cols, kinds, seps)
+        with self._lock:
+            got = self._luts.get((form, key)) if key is not None else None
+            made = got is None
+            if got is None:
+                got = kind(len(np.asarray(cols[0].values)))
+            new = got.missing(codes)
+            if new.size:
+                got.add(new, self._lut_texts(cols, kinds, seps, new))
+            text, length = got.text, got.length
+        if made and key is not None:
+            self._keep((form, key), got)
+        return text, length
+
+    @staticmethod
+    def _lut_texts(cols: Sequence[Column], kinds: Sequence[str], seps: Sequence[bytes],
+                   codes: np.ndarray) -> list[bytes]:
+        texts: list[bytes] | None = None
+        tail = b""
+        for c, k, s in zip(cols, kinds, seps):
+            if isinstance(c, Coded):
+                cells = [t + s for t in cell_texts(np.asarray(c.values)[codes], k)]
+                texts = cells if texts is None else [a + b for a, b in zip(texts, cells)]
+            else:
+                tail += cell_texts([c.value], k)[0] + s
+        return [t + tail for t in texts or []]
+
+
+MAX_LUTS = 8  # value-text tables kept per table (one or two per code space; a few MB each)
+
+
+class _WordTexts:
+    """Texts of codes as rows of words (NUL-padded), the row growing as longer
+    texts come, filled in as codes are first asked for."""
+
+    def __init__(self, size: int) -> None:
+        self.text = np.zeros((size, 1), dtype=_W)
+        self.length = np.zeros(size, dtype=np.int64)
+        self.filled = np.zeros(size, dtype=bool)
+
+    def missing(self, codes: np.ndarray) -> np.ndarray:
+        gaps = ~self.filled[codes]
+        return np.unique(codes[gaps]) if gaps.any() else codes[:0]
+
+    def add(self, codes: np.ndarray, texts: Sequence[bytes]) -> None:
+        words = _words(texts)
+        if words.shape[1] > self.text.shape[1]:  # a new array: readers keep the old one
+            wide = np.zeros((len(self.text), words.shape[1]), dtype=_W)
+            wide[:, : self.text.shape[1]] = self.text
+            self.text = wide
+        self.text[codes, : words.shape[1]] = words
+        self.length[codes] = [len(t) for t in texts]
+        self.filled[codes] = True
+
+
+class _RightTexts:
+    """Texts of codes, right-aligned (NUL bytes, then the text) in rows of one
+    width: a power of two, which numpy copies fastest, growing as longer texts
+    come; filled in as codes are first asked for."""
+
+    def __init__(self, size: int) -> None:
+        self.text = np.zeros((size, 8), dtype=np.uint8)
+        self.length = np.zeros(size, dtype=np.int16)
+        self.filled = np.zeros(size, dtype=bool)
+
+    def missing(self, codes: np.ndarray) -> np.ndarray:
+        gaps = ~self.filled[codes]
+        return np.unique(codes[gaps]) if gaps.any() else codes[:0]
+
+    def add(self, codes: np.ndarray, texts: Sequence[bytes]) -> None:
+        width = self.text.shape[1]
+        longest = max(map(len, texts), default=1)
+        if longest > width:  # a new array: readers keep the old one
+            while width < longest:
+                width *= 2
+            wide = np.zeros((len(self.text), width), dtype=np.uint8)
+            wide[:, width - self.text.shape[1]:] = self.text
+            self.text = wide
+        flipped = np.array([t[::-1] for t in texts], dtype=f"S{width}").view(np.uint8)
+        self.text[codes] = flipped.reshape(len(texts), width)[:, ::-1]
+        self.length[codes] = [len(t) for t in texts]
+        self.filled[codes] = True
+
+
+# ---- samples in their frames' form --------------------------------------------------------
+FRAME_ROWS = 1 << 16  # rows placed at once: each temporary stays near half a megabyte
+_MAX_TICK_DIGITS = 6  # tick rates up to 10**6 Hz (the board's microseconds) take this path
+_MAX_SECOND_DIGITS = 8  # seconds since boot below 10**8 (three years): one 64-bit word
+_U64 = np.uint64
+
+
+def _digit_words(values: np.ndarray, digits: int) -> np.ndarray:
+    """Each value's `digits` decimal digits (zero-padded) as the bytes of a uint64,
+    first digit in the lowest byte."""
+    out = np.zeros(values.shape, dtype=_U64)
+    for j in range(digits):
+        d = (values // _P10[digits - 1 - j]) % 10 + 48
+        out |= d.astype(_U64) << _U64(8 * j)
+    return out
+
+
+_SECOND_LUTS: dict[int, tuple[np.ndarray, np.ndarray, np.ndarray]] = {}
+_SECOND_LUTS_LOCK = threading.Lock()
+
+
+def _second_luts(k: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """For u in 0..10**k - 1 (the part of a tick below a second at 10**k Hz):
+    the tick's last k digits and ',' as uint64 bytes; the fraction of the
+    seconds' repr ('.5,', '.25,', '.0,') right-aligned in a uint64's 8 bytes;
+    its length."""
+    with _SECOND_LUTS_LOCK:
+        got = _SECOND_LUTS.get(k)
+        if got is None:
+            digits, frac, length = _second_words(k)
+            got = _SECOND_LUTS[k] = (digits, frac << _U64(8 * (6 - k)), length.astype(np.int16))
+        return got
+
+
+def _second_words(k: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """_second_luts as uint64 words (the fraction's text ending at byte k + 1)."""
+    if k <= 3:  # a thousand values at most: from their text
+        texts = [b"%0*d" % (k, u) for u in range(10**k)]
+        fracs = [(b"." + t.rstrip(b"0") if u else b".0") + b"," for u, t in enumerate(texts)]
+        return (np.array([int.from_bytes(t + b",", "little") for t in texts], dtype=_U64),
+                np.array([int.from_bytes(f.rjust(k + 2, b"\0"), "little") for f in fracs],
+                         dtype=_U64),
+                np.array([len(f) for f in fracs], dtype=np.int64))
+    # u = a * 1000 + b: the k - 3 digits of a, then the three of b
+    high_digits, high_frac, high_len = _second_words(k - 3)
+    head = high_digits & _U64((1 << (8 * (k - 3))) - 1)  # a's digits without the comma
+    tail, tail_frac, tail_len = _second_words(3)  # b's digits, its stripped fraction
+    digits = head[:, None] | (tail[None, :] << _U64(8 * (k - 3)))
+    kept = tail_len - 2  # digits of b before its trailing zeros
+    # b > 0: '.', a's digits, b's kept digits, ',' ending at byte k + 1
+    b_bytes = tail_frac >> (8 * (4 - kept)).astype(_U64)  # b's kept digits and ','
+    b_part = (b_bytes << (8 * (k + 1 - kept)).astype(_U64)) | (
+        _U64(ord(".")) << (8 * (3 - kept)).astype(_U64))
+    frac = b_part[None, :] | (head[:, None] << (8 * (4 - kept)).astype(_U64)[None, :])
+    length = np.broadcast_to(k - 1 + kept, frac.shape).copy()
+    frac[:, 0] = high_frac << _U64(24)  # b == 0: a's own fraction text, moved to the end
+    length[:, 0] = high_len
+    return digits.reshape(-1), frac.reshape(-1), length.reshape(-1)
+
+
+def _pack(parts: Sequence[tuple[int, np.ndarray, int]], n: int, width: int) -> np.ndarray:
+    """(n, words) uint64 holding byte strings placed side by side: parts are
+    (byte offset, uint64 bytes, length <= 8)."""
+    words = np.zeros((n, -(-width // 8)), dtype=_U64)
+    for at, v, length in parts:
+        q, r = divmod(at, 8)
+        words[:, q] |= (v << _U64(8 * r)) if r else v
+        if r + length > 8:
+            words[:, q + 1] |= v >> _U64(8 * (8 - r))
+    return words
+
+
+def _stride1(buf: np.ndarray, width: int) -> np.ndarray:
+    """Every `width` bytes of buf as one void item, one item per starting byte."""
+    return np.ndarray((buf.size - width + 1,), dtype=f"V{width}", buffer=buf, strides=(1,))
+
+
+class FramesText:
+    """The samples table's lines from its frames' form, without the word matrix.
+
+    A batch shaped as TableSink writes samples (constants; columns with one
+    value per frame; a Stepped tick; its TickSeconds at 10..10**6 Hz; Coded
+    values with the constants after them) is placed piece by piece into the
+    output: each row's end is known from the lengths of its pieces, so the
+    value text (right-aligned, from a table per code), the seconds' fraction
+    (right-aligned, from a table per tick remainder), the frame's text and the
+    fixed-width tick text are copied to their places in that order. A piece
+    copied right-aligned may cover bytes to its left, and the frame's text may
+    reach past its end; the pieces written after it restore those bytes, and
+    every piece stays inside its own row. Anything else, and any block the
+    checks refuse, goes through the word matrix.
+    """
+
+    def __init__(self, form: _CsvFormat) -> None:
+        self.form = form
+        self._local = threading.local()  # each thread's output buffer, used again
+
+    def text(self, cols: Sequence[Column], n: int) -> list[Any] | None:
+        plan = self._plan(cols)
+        if plan is None:
+            return None
+        self._local.at = 0
+        pieces: list[Any] = []
+        for lo in range(0, n, FRAME_ROWS):
+            hi = min(n, lo + FRAME_ROWS)
+            part = slice_batch(cols, lo, hi)
+            placed = self._place(plan, part, hi - lo)
+            pieces.append(placed if placed is not None else self.form.lines(part, hi - lo))
+        return pieces
+
+    def _plan(self, cols: Sequence[Column]) -> tuple[int, int] | None:
+        """(the tick's column, the tick rate's digits): the columns before the tick
+        have one value per frame, those after its seconds are Coded (and constants)."""
+        kinds = self.form._kinds
+        i = 0
+        while i < len(cols) and isinstance(cols[i], (Const, PerFrame)):
+            i += 1
+        if i + 2 >= len(cols) or not isinstance(cols[i], Stepped) or kinds[i] != INT:
+            return None
+        secs = cols[i + 1]
+        if not isinstance(secs, TickSeconds) or secs.tick is not cols[i] or kinds[i + 1] != FLOAT:
+            return None
+        k = len(str(secs.tick_hz)) - 1
+        if secs.tick_hz != 10**k or not 1 <= k <= _MAX_TICK_DIGITS:
+            return None
+        rest = cols[i + 2 :]
+        if not isinstance(rest[0], Coded) or not all(
+                isinstance(c, Const) or (isinstance(c, Coded) and c.codes is rest[0].codes)
+                for c in rest):
+            return None
+        return i, k
+
+    def _frame_texts(self, cols: Sequence[Column], frames: int) -> tuple[np.ndarray, np.ndarray]:
+        """Each frame's text (its leading cells, each with its comma), left-aligned
+        in one width, and their lengths."""
+        quick = self._frame_texts_by_code(cols, frames)
+        if quick is not None:
+            return quick
+        per = [c.values if isinstance(c, PerFrame) else c for c in cols]
+        m = self.form.matrix(per, self.form._kinds[: len(cols)], [b","] * len(cols), frames)
+        b = m.view(np.uint8).reshape(frames, -1)
+        keep = b != 0
+        lengths = np.count_nonzero(keep, axis=1).astype(np.int64)
+        flat = np.concatenate([b[keep], np.zeros(1, np.uint8)])
+        width = max(1, int(lengths.max()) if frames else 1)
+        col = np.arange(width)
+        idx = np.minimum((np.cumsum(lengths) - lengths)[:, None] + col, flat.size - 1)
+        text = np.where(col < lengths[:, None], flat[idx], 0).astype(np.uint8)
+        return np.ascontiguousarray(text).view(f"V{width}").reshape(-1), lengths
+
+    def _frame_texts_by_code(self, cols: Sequence[Column], frames: int
+                             ) -> tuple[np.ndarray, np.ndarray] | None:
+        """_frame_texts when the leading cells are constants, then columns coded
+        per frame by one code (a stream's description), then a count (seq): the
+        text before the count from a table per code, the count's digits placed
+        after it, and the comma."""
+        kinds = self.form._kinds
+        i = 0
+        while i < len(cols) and isinstance(cols[i], Const):
+            i += 1
+        coded = cols[i:-1]
+        last = cols[-1] if cols else None
+        if not coded or not isinstance(last, PerFrame) or kinds[len(cols) - 1] != INT:
+            return None
+        code = coded[0].values.codes if isinstance(coded[0], PerFrame) and isinstance(
+            coded[0].values, Coded) else None
+        if code is None or not all(isinstance(c, PerFrame) and isinstance(c.values, Coded)
+                                   and c.values.codes is code for c in coded):
+            return None
+        count = np.asarray(last.values)
+        if count.dtype.kind not in "iu" or not frames or int(count.min()) < 0:
+            return None
+        head = b"".join(cell_texts([c.value], k)[0] + b"," for c, k in zip(cols[:i], kinds))
+        table: list[bytes] = [head] * len(np.asarray(coded[0].values.values))
+        for c, k in zip(coded, kinds[i:]):
+            table = [t + v + b"," for t, v in zip(table, cell_texts(
+                np.asarray(c.values.values), k))]
+        texts = _RightTexts(len(table))
+        texts.add(np.arange(len(table)), table)
+        w_p, d_max = texts.text.shape[1], len(str(int(count.max())))
+        head_len = texts.length[code].astype(np.int64)
+        digits = np.ones(frames, dtype=np.int64)
+        for j in range(1, d_max):
+            digits += count >= _P10[j]
+        margin = max(w_p, d_max)
+        width = margin + w_p + d_max + 1
+        buf = np.zeros(frames * width, dtype=np.uint8)
+        ends = np.arange(frames) * width + margin + head_len  # where each head ends
+        zero_padded = ((count[:, None] // _P10[d_max - 1 :: -1][: d_max]) % 10 + 48).astype(
+            np.uint8)
+        _stride1(buf, d_max)[ends + digits - d_max] = np.ascontiguousarray(
+            zero_padded).view(f"V{d_max}").reshape(-1)  # leading zeros land on the head
+        _stride1(buf, w_p)[ends - w_p] = texts.text[code].view(f"V{w_p}")[:, 0]  # over them
+        buf[ends + digits] = ord(",")
+        lengths = head_len + digits + 1
+        text = np.ndarray((frames,), dtype=f"V{int(lengths.max())}", buffer=buf, offset=margin,
+                          strides=(width,))
+        return np.ascontiguousarray(text), lengths
+
+    def _buffer(self, size: int) -> np.ndarray:
+        """size bytes of this thread's buffer after what this batch used so far."""
+        local = self._local
+        buf: np.ndarray | None = getattr(local, "buf", None)
+        at = local.at
+        if buf is None or at + size > buf.size:  # earlier pieces keep the old one alive
+            buf = local.buf = np.empty(max(size, 2 * (buf.size if buf is not None else 0),
+                                           1 << 20), dtype=np.uint8)
+            at = 0
+        local.at = at + size
+        return buf[at : at + size]
+
+    def _place(self, plan: tuple[int, int], cols: Sequence[Column], n: int
+               ) -> memoryview | None:
+        t, k = plan
+        step: Stepped = cols[t]
+        counts = step.counts
+        frames = len(counts)
+        hz = 10**k
+        tick = step.expand()
+        low, high = int(tick.min()), int(tick.max())
+        if low < 0 or high >= MAX_EXACT or len(str(high // hz)) > _MAX_SECOND_DIGITS:
+            return None
+        sec, u = np.divmod(tick, hz)
+        if low < hz and bool(((tick > 0) & (tick * 10_000 < hz)).any()):
+            return None  # repr writes 5e-05: those rows take the word matrix
+        shapes = _TickShapes(sec, u, k, low, high, n)
+        digits, frac, frac_len = _second_luts(k)
+        codes = cols[t + 2].codes
+        v_text, v_len = self.form.right_lut(cols[t + 2 :], self.form._kinds[t + 2 :],
+                                            self.form._seps[t + 2 :], codes)
+        a_text, a_len = self._frame_texts(cols[:t], frames)
+        fr = np.repeat(np.arange(frames), counts)
+        len_v = v_len[codes]
+        row_a = a_len[fr]
+        size = row_a + shapes.width
+        size += frac_len[u]
+        size += len_v
+        if int((size - len_v).min()) < 8:
+            return None  # a fraction would reach into the row before
+        end = np.cumsum(size)
+        out = self._buffer(int(end[-1]))
+        _write_value_texts(out, end, v_text, codes, len_v, size)
+        end -= len_v  # now where the fraction ends
+        _stride1(out, 8)[end - 8] = np.take(frac, u).view("V8")
+        start = end - size  # (end less the value text) - (size less it) = the row's start
+        start += len_v
+        _write_frame_texts(out, start, a_text, a_len, fr, shapes.narrowest)
+        start += row_a  # now where the tick begins
+        shapes.write(out, start, digits)
+        return memoryview(out.data)
+
+
+def _write_value_texts(out: np.ndarray, end: np.ndarray, text: np.ndarray, codes: np.ndarray,
+                       length: np.ndarray, room: np.ndarray) -> None:
+    """Each row's value text, right-aligned to end at the row's end. A copy of the
+    table's whole width reaches before the text, so rows shorter than that width
+    take a narrower copy (the last bytes of each text), or their own lengths."""
+    width = text.shape[1]
+    narrow = int(room.min())
+    if narrow >= width or int(length.max()) <= narrow:
+        _copy_right(out, end, text, codes, min(width, narrow))
+        return
+    short = room < width
+    rows = np.flatnonzero(~short)
+    _copy_right(out, end[rows], text, codes[rows], width)
+    rows = np.flatnonzero(short)
+    narrow = int(room[rows].min())
+    if int(length[rows].max()) <= narrow:
+        _copy_right(out, end[rows], text, codes[rows], narrow)
+        return
+    lengths = length[rows]
+    for n in np.unique(lengths).tolist():
+        these = rows[lengths == n]
+        _copy_right(out, end[these], text, codes[these], n)
+
+
+def _copy_right(out: np.ndarray, end: np.ndarray, text: np.ndarray, codes: np.ndarray,
+                width: int) -> None:
+    """The last `width` bytes of each code's text, copied to end at `end`."""
+    got = np.take(text, codes, axis=0)
+    if width < text.shape[1]:
+        got = np.ascontiguousarray(got[:, text.shape[1] - width :])
+    _stride1(out, width)[end - width] = got.view(f"V{width}")[:, 0]
+
+
+def _write_frame_texts(out: np.ndarray, start: np.ndarray, text: np.ndarray,
+                       length: np.ndarray, fr: np.ndarray, room: int) -> None:
+    """Each row's frame text at its start. A text is copied in the width of the
+    longest, so a shorter one reaches past its end: by at most `room` bytes (the
+    tick text written after it) in each copy, so frames whose texts differ more
+    in length are copied in separate widths."""
+    lengths = np.unique(length)
+    width = text.dtype.itemsize
+    if int(lengths[-1] - lengths[0]) <= room:
+        _stride1(out, width)[start] = np.take(text, fr)
+        return
+    as_bytes = text.view(np.uint8).reshape(len(text), width)
+    low = 0
+    while low < len(lengths):
+        high = int(np.searchsorted(lengths, lengths[low] + room, side="right"))
+        w = int(lengths[high - 1])
+        frames = (length >= lengths[low]) & (length <= w)
+        rows = np.flatnonzero(frames[fr])
+        part = np.ascontiguousarray(as_bytes[:, :w]).view(f"V{w}").reshape(-1)
+        _stride1(out, w)[start[rows]] = np.take(part, fr[rows])
+        low = high
+
+
+class _TickShapes:
+    """The tick and the seconds before their fraction ('12345000,12' of
+    '12345000,12.345,'), which has a fixed width for all rows whose seconds have
+    the same number of digits: seconds, the tick's last k digits, ',', seconds.
+    In the first second the tick has no leading zeros: its digits, ',', '0'."""
+
+    def __init__(self, sec: np.ndarray, u: np.ndarray, k: int, low: int, high: int,
+                 n: int) -> None:
+        self.sec, self.u, self.k = sec, u, k
+        hz = 10**k
+        self.s0, s1 = max(low // hz, 1), max(high // hz, 1)
+        self.lows = np.arange(self.s0, s1 + 1, dtype=np.int64) if s1 - self.s0 <= n else None
+        ws0, ws1 = len(str(self.s0)), len(str(s1))
+        self.groups: list[tuple[int, int, np.ndarray | None]] = []  # (seconds' digits or 0,
+        # the tick's digits in the first second, rows)
+        first = None if low >= hz else sec == 0
+        if first is None and ws0 == ws1:
+            self.width: Any = 2 * ws0 + k + 1
+            self.narrowest = self.width
+            self.groups.append((ws0, 0, None))
+            return
+        width = np.zeros(len(sec), dtype=np.int64)
+        for ws in range(ws0, ws1 + 1):
+            rows = (sec >= _P10[ws - 1]) & (sec < _P10[ws])
+            width[rows] = 2 * ws + k + 1
+            self.groups.append((ws, 0, np.flatnonzero(rows)))
+        if first is not None:
+            for d in range(1, k + 1):
+                rows = first & (u < _P10[d]) & ((u >= _P10[d - 1]) if d > 1 else True)
+                width[rows] = d + 2
+                self.groups.append((0, d, np.flatnonzero(rows)))
+        self.width = width
+        self.narrowest = int(width.min())
+
+    def write(self, out: np.ndarray, start: np.ndarray, digits: np.ndarray) -> None:
+        for ws, d, rows in self.groups:
+            if rows is not None and not rows.size:
+                continue
+            at, sec, u = (start, self.sec, self.u) if rows is None else (
+                start[rows], self.sec[rows], self.u[rows])
+            if ws:
+                if self.lows is not None:  # few seconds: each one's digits once
+                    s_text = np.take(_digit_words(self.lows, ws), sec - self.s0)
                 else:
-                    tail += _cell_texts([c.value], k)[0] + s
-            lut = _words([t + tail for t in texts or []])
-            if cacheable:
-                self._luts[keys] = lut
-        return lut
-
-def _slice(col: Column, lo: int, hi: int) -> Column:
-    if isinstance(col, Const):
-        return col
-    if isinstance(col, Coded):
-        return Coded(col.codes[lo:hi], col.values, col.key)
-    if isinstance(col, TickSeconds):
-        return TickSeconds(col.tick[lo:hi], col.tick_hz)
-    return col[lo:hi]
-
+                    s_text = _digit_words(sec, ws)
+                k = self.k
+                width = 2 * ws + k + 1
+                words = _pack([(0, s_text, ws), (ws, np.take(digits, u), k + 1),
+                               (ws + k + 1, s_text, ws)], len(sec), width)
+            else:
+                width = d + 2
+                words = _pack([(0, _digit_words(u, d), d),
+                               (d, np.full(len(u), _U64(ord(",") | ord("0") << 8)), 2)],
+                              len(u), width)
+            x = np.ndarray((len(sec),), dtype=f"V{width}", buffer=words,
+                           strides=(words.shape[1] * 8,))
+            _stride1(out, width)[at] = x
 
 
 def read_csv(path: Path, columns: Sequence[str], kinds: Mapping[str, str]

@@ -1,14 +1,17 @@
 """Parquet for table_io: one file per table, or a hive-partitioned dataset.
 
-Batches are buffered per part (a partition, and within it a file per value of
-the spec's split_by column) and written as large row groups; encoding runs on
-the Background lanes. Files are written without the Arrow schema blob, so any
-reader sees plain Parquet types; the spec's kinds and units, and what the
-caller adds per part, go in the key-value metadata.
+Batches are kept per part (a partition, and within it a file per value of
+the spec's split_by column) in the compact form they came in (frames' form,
+codes), and every ROW_GROUP_ROWS rows become one row group: the columns are
+made into Arrow arrays and encoded on the Background lanes, so the caller
+does not wait for them. Files are written without the Arrow schema blob, so
+any reader sees plain Parquet types; the spec's kinds and units, and what
+the caller adds per part, go in the key-value metadata.
 """
 
 from __future__ import annotations
 
+import threading
 from collections.abc import Callable, Mapping, Sequence
 from pathlib import Path
 from typing import Any
@@ -22,19 +25,30 @@ from slipless.io.table_io import (
     STR,
     UTC,
     Background,
+    Coded,
     Col,
     Column,
     Const,
+    PerFrame,
     Spec,
+    Stepped,
     TableWriter,
+    TickSeconds,
+    frame_values,
     plain_values,
+    repeat_frames,
     run_now,
+    slice_batch,
+    take_batch,
+    ticks_of,
 )
 
-ROW_GROUP_ROWS = 1 << 18  # Parquet rows buffered per part before a row group is written
+ROW_GROUP_ROWS = 1 << 18  # Parquet rows of a part gathered into one row group
 MAX_BUFFERED_ROWS = 4 * ROW_GROUP_ROWS  # all parts of one table together: memory bound
 MAX_OPEN_PARTS = 64  # Parquet files open per table; the least recent is closed beyond it
 PARQUET_HINT = "--format parquet needs pyarrow: pip install 'slipless[parquet]'"
+
+
 def _pyarrow() -> tuple[Any, Any]:
     try:
         import pyarrow as pa
@@ -55,32 +69,149 @@ def arrow_type(pa: Any, c: Col) -> Any:
     return pa.int64()
 
 
-def _arrow(pa: Any, col: Column, n: int, c: Col) -> Any:
+class _Dictionaries:
+    """A Coded text column's values as an Arrow dictionary (each distinct text
+    once) and each code's place in it (-1: null), kept per key."""
+
+    def __init__(self) -> None:
+        self._kept: dict[Any, tuple[Any, np.ndarray]] = {}
+        self._lock = threading.Lock()  # lanes share it
+
+    def get(self, pa: Any, col: Coded) -> tuple[Any, np.ndarray]:
+        with self._lock:
+            got = self._kept.get(col.key) if col.key is not None else None
+        if got is None:
+            where: dict[str, int] = {}
+            index = np.array([-1 if v is None else where.setdefault(str(v), len(where))
+                              for v in np.asarray(col.values).tolist()], dtype=np.int32)
+            got = (pa.array(list(where), pa.string()), index)
+            if col.key is not None:
+                with self._lock:
+                    if len(self._kept) >= _MAX_DICTIONARIES:
+                        self._kept.pop(next(iter(self._kept)))
+                    self._kept[col.key] = got
+        return got
+
+
+_MAX_DICTIONARIES = 16  # text tables kept per table (one per code space)
+
+
+class _Scratch:
+    """Arrays used again by every row group a lane writes: fresh memory costs a
+    page fault a page, about as much as encoding it. A row group's batches fill
+    one array per column, each batch its own rows of it (start(), then batch()
+    before each batch's columns, which take() in the same order every time)."""
+
+    def __init__(self) -> None:
+        self._kept: dict[tuple[str, int], np.ndarray] = {}
+        self._used: dict[str, int] = {}
+        self._rows = self._at = 0
+        self.nulls: dict[tuple[int, str], Any] = {}  # all-null Arrow arrays (immutable)
+
+    def start(self, rows: int) -> None:
+        self._rows, self._at = rows, 0
+
+    def batch(self, at: int) -> None:
+        self._used, self._at = {}, at
+
+    def take(self, dtype: Any, n: int) -> np.ndarray:
+        dt = np.dtype(dtype)
+        i = self._used.get(dt.str, 0)
+        self._used[dt.str] = i + 1
+        need = max(self._rows, self._at + n)
+        buf = self._kept.get((dt.str, i))
+        if buf is None or buf.size < need:
+            buf = self._kept[(dt.str, i)] = np.empty(need, dtype=dt)
+        return buf[self._at : self._at + n]
+
+    def null(self, pa: Any, n: int, typ: Any) -> Any:
+        key = (n, str(typ))
+        got = self.nulls.get(key)
+        if got is None:
+            if len(self.nulls) >= 8:
+                self.nulls.clear()
+            got = self.nulls[key] = pa.nulls(n, typ)
+        return got
+
+
+def _expanded(col: Stepped, made: dict[int, np.ndarray], scratch: _Scratch) -> np.ndarray:
+    got = made.get(id(col))
+    if got is None:
+        got = made[id(col)] = col.expand(scratch.take(np.int64, int(col.counts.sum())))
+    return got
+
+
+def _text(pa: Any, col: Column, n: int, c: Col, dicts: _Dictionaries, scratch: _Scratch) -> Any:
+    """A text column as Arrow: dictionary-encoded when its texts repeat."""
+    typ = arrow_type(pa, c)
+    if isinstance(col, Const):
+        if col.value is None:
+            return scratch.null(pa, n, typ)
+        arr = pa.DictionaryArray.from_arrays(pa.array(np.zeros(n, np.int32)),
+                                             pa.array([str(col.value)], pa.string()))
+        return arr if c.repeats else arr.cast(pa.string())
+    coded: Coded | None = None
+    counts = None
+    if isinstance(col, Coded):
+        coded = col
+    elif isinstance(col, PerFrame) and isinstance(col.values, Coded):
+        coded, counts = col.values, col.counts
+    if coded is not None:
+        dictionary, index = dicts.get(pa, coded)
+        if counts is not None:
+            idx = repeat_frames(index[coded.codes], counts, scratch.take(np.int32, n))
+        else:
+            idx = np.take(index, coded.codes, out=scratch.take(np.int32, n))
+        missing = idx < 0
+        if missing.any():
+            np.maximum(idx, 0, out=idx)
+        arr = pa.DictionaryArray.from_arrays(
+            pa.array(idx, pa.int32(), mask=missing if missing.any() else None), dictionary)
+        return arr if c.repeats else arr.cast(pa.string())
+    vals = plain_values(col, n, STR)
+    if isinstance(vals, np.ndarray):
+        vals = vals.tolist()
+    arr = pa.array([None if v is None else str(v) for v in vals], pa.string())
+    return arr.dictionary_encode() if c.repeats else arr
+
+
+def _arrow(pa: Any, col: Column, n: int, c: Col, dicts: _Dictionaries,
+           ticks: dict[int, np.ndarray], scratch: _Scratch) -> Any:
+    """A column as an Arrow array of its kind's type, numbers in the lane's
+    scratch arrays. ticks: Stepped columns already made (a batch's ticks and its
+    seconds share one)."""
     typ, kind = arrow_type(pa, c), c.kind
     if isinstance(col, Const) and col.value is None:
-        return pa.nulls(n, typ)
+        return scratch.null(pa, n, typ)
     if kind == STR:
-        if isinstance(col, Const):
-            text = None if col.value is None else str(col.value)
-            arr = pa.DictionaryArray.from_arrays(pa.array(np.zeros(n, np.int32)),
-                                                 pa.array([text], pa.string()))
-            return arr if c.repeats else arr.cast(pa.string())
+        return _text(pa, col, n, c, dicts, scratch)
+    if isinstance(col, Stepped):
+        vals: Any = _expanded(col, ticks, scratch)
+    elif isinstance(col, TickSeconds) and col.tick_hz:
+        tick = col.tick
+        made = _expanded(tick, ticks, scratch) if isinstance(tick, Stepped) else ticks_of(tick)
+        vals = np.divide(made, col.tick_hz, out=scratch.take(np.float64, n))
+    elif isinstance(col, PerFrame):
+        per = frame_values(col.values)
+        vals = repeat_frames(per, col.counts, None if per.dtype.kind == "O" else
+                             scratch.take(per.dtype, n))
+    elif isinstance(col, Coded) and np.asarray(col.values).dtype.kind in "iuf":
+        table = np.asarray(col.values)
+        vals = np.take(table, col.codes, out=scratch.take(table.dtype, n))
+    else:
         vals = plain_values(col, n, kind)
-        if isinstance(vals, np.ndarray):
-            vals = vals.tolist()
-        arr = pa.array([None if v is None else str(v) for v in vals], pa.string())
-        return arr.dictionary_encode() if c.repeats else arr
-    vals = plain_values(col, n, kind)
-    if isinstance(vals, np.ndarray):
+    if isinstance(vals, np.ndarray) and vals.dtype.kind != "O":
         if kind == FLOAT:
             vals = vals.astype(np.float64, copy=False)
-            nan = np.isnan(vals)
+            nan = np.isnan(vals, out=scratch.take(np.bool_, n)) if vals.size == n else np.isnan(vals)
             return pa.array(vals, type=typ, mask=nan if nan.any() else None)
         if vals.dtype.kind == "f":  # int column from floats: NaN is missing
             nan = np.isnan(vals)
             return pa.array(np.where(nan, 0, vals).astype(np.int64), type=typ,
                             mask=nan if nan.any() else None)
         return pa.array(vals.astype(np.int64, copy=False), type=typ)
+    if isinstance(vals, np.ndarray):
+        vals = vals.tolist()
     if kind == FLOAT:
         return pa.array([None if v is None or v != v else float(v) for v in vals], type=typ)
     return pa.array(vals, type=typ)
@@ -91,7 +222,7 @@ class _Part:
 
     def __init__(self, writer: Any, path: Path, run: Callable[..., None]) -> None:
         self.writer, self.path, self.run = writer, path, run
-        self.buffer: list[Any] = []
+        self.buffer: list[tuple[list[Column], int]] = []  # batches in their own form
         self.rows = 0
         self.used = 0
 
@@ -99,7 +230,7 @@ class _Part:
 class ParquetWriter(TableWriter):
     """Parquet file or hive-partitioned dataset with large row groups.
 
-    Batches are buffered per part until ROW_GROUP_ROWS, then written as one
+    Batches are kept per part until ROW_GROUP_ROWS, then written as one
     row group. Written without the Arrow schema blob, so readers see plain
     types (string, not dictionary); units and kinds go in key-value metadata.
     """
@@ -118,45 +249,72 @@ class ParquetWriter(TableWriter):
         self._clock = 0
         self.written: list[Path] = []
         self._data_cols = [c for c in spec.columns if c.name not in spec.partition]
+        self._data_at = [spec.names.index(c.name) for c in self._data_cols]
         self._schema = self._pa.schema([(c.name, arrow_type(self._pa, c)) for c in self._data_cols])
+        self._dicts = _Dictionaries()
+        self._scratch = threading.local()  # each lane's _Scratch
         if spec.partition:
             path.mkdir(parents=True, exist_ok=True)
             _clear_dataset(path, spec.partition)
 
     def _write(self, cols: Sequence[Column], n: int) -> None:
-        by_name = dict(zip(self.spec.names, cols))
-        keys: list[tuple[tuple[Any, ...], np.ndarray | None]]
-        split = by_name.get(self.spec.split_by)
-        shard = (split.value,) if isinstance(split, Const) else ()  # its own file and lane
-        if all(isinstance(by_name[p], Const) for p in self.spec.partition):
-            keys = [(tuple(by_name[p].value for p in self.spec.partition) + shard, None)]
-        else:
-            parts = np.column_stack([np.asarray(plain_values(by_name[p], n, INT), dtype=np.int64)
-                                     for p in self.spec.partition])
-            if (parts == parts[0]).all():  # the usual case: one board and run per batch
-                keys = [(tuple(int(v) for v in parts[0]) + shard, None)]
-            else:
-                uniq, inverse = np.unique(parts, axis=0, return_inverse=True)
-                keys = [(tuple(int(v) for v in u) + shard,
-                         np.flatnonzero(inverse.reshape(-1) == i)) for i, u in enumerate(uniq)]
-        pa = self._pa
-        arrays = [_arrow(pa, by_name[c.name], n, c) for c in self._data_cols]
-        for key, rows in keys:
-            batch = arrays if rows is None else [a.take(pa.array(rows)) for a in arrays]
-            self._add(key, batch)
+        for key, part_cols, rows in self._split(list(cols), n):
+            self._add(key, [part_cols[i] for i in self._data_at], rows)
 
-    def _add(self, key: tuple[Any, ...], arrays: list[Any]) -> None:
+    def _split(self, cols: list[Column], n: int
+               ) -> list[tuple[tuple[Any, ...], list[Column], int]]:
+        """The batch's rows by part: (key, columns, rows), parts in order of first row."""
+        names = self.spec.names
+        parts = [cols[names.index(p)] for p in self.spec.partition]
+        if not all(isinstance(p, Const) for p in parts):
+            cols = [plain_values(c, n, k.kind) if isinstance(c, (PerFrame, Stepped)) else c
+                    for c, k in zip(cols, self.spec.columns)]
+            by = np.column_stack([np.asarray(plain_values(cols[names.index(p)], n, INT),
+                                             dtype=np.int64) for p in self.spec.partition])
+            if not (by == by[0]).all():  # rows of several boards or runs, in their order
+                uniq, inverse = np.unique(by, axis=0, return_inverse=True)
+                out = []
+                for i in range(len(uniq)):
+                    rows = np.flatnonzero(inverse.reshape(-1) == i)
+                    sub = [_rows_of(c, rows, k.kind) for c, k in zip(cols, self.spec.columns)]
+                    out += self._shards(tuple(int(v) for v in uniq[i]), sub, len(rows))
+                return out
+            return self._shards(tuple(int(v) for v in by[0]), cols, n)
+        return self._shards(tuple(p.value for p in parts), cols, n)
+
+    def _shards(self, where: tuple[Any, ...], cols: list[Column], n: int
+                ) -> list[tuple[tuple[Any, ...], list[Column], int]]:
+        """A file per value of split_by (a constant, or one value per frame)."""
+        if not self.spec.split_by:
+            return [(where, cols, n)]
+        split = cols[self.spec.names.index(self.spec.split_by)]
+        if isinstance(split, Const):
+            return [(where + (split.value,), cols, n)]
+        if not isinstance(split, PerFrame):
+            return [(where, cols, n)]
+        values = frame_values(split.values)
+        uniq, first = np.unique(values, return_index=True)
+        if len(uniq) == 1:
+            return [(where + (uniq[0].item(),), cols, n)]
+        out = []
+        for i in np.argsort(first, kind="stable").tolist():
+            frames = values == uniq[i]
+            rows = np.repeat(frames, split.counts)
+            sub = take_batch(cols, frames, rows)
+            out.append((where + (uniq[i].item(),), sub, int(split.counts[frames].sum())))
+        return out
+
+    def _add(self, key: tuple[Any, ...], cols: list[Column], rows: int) -> None:
         part = self._parts.get(key)
         if part is None:
             part = self._open_part(key)
         self._clock += 1
         part.used = self._clock
-        batch = self._pa.RecordBatch.from_arrays(arrays, schema=self._schema)
-        part.buffer.append(batch)
-        part.rows += batch.num_rows
-        self._buffered += batch.num_rows
-        if part.rows >= ROW_GROUP_ROWS:
-            self._flush(part)
+        part.buffer.append((cols, rows))
+        part.rows += rows
+        self._buffered += rows
+        while part.rows >= ROW_GROUP_ROWS:
+            self._flush(part, ROW_GROUP_ROWS)
         while self._buffered > MAX_BUFFERED_ROWS:
             self._flush(max(self._parts.values(), key=lambda p: p.rows))
 
@@ -175,27 +333,68 @@ class ParquetWriter(TableWriter):
         else:
             path = self.path
         pa, schema = self._pa, self._schema
+        by_name = {c.name: c for c in self._data_cols}
         strs = [f.name for f in schema if not (pa.types.is_integer(f.type) or
                                                pa.types.is_floating(f.type) or
                                                pa.types.is_timestamp(f.type))]
         ints = [f.name for f in schema if pa.types.is_integer(f.type)]
+        few = [n for n, c in by_name.items() if c.encoding == "dictionary" and n not in strs]
+        split = [n for n, c in by_name.items() if c.encoding == "split" and n not in strs + ints]
+        encodings = {n: "DELTA_BINARY_PACKED" for n in ints if n not in few}
+        encodings.update({n: "BYTE_STREAM_SPLIT" for n in split})
         writer = self._pq.ParquetWriter(
             path, schema, store_schema=False, compression="snappy",
-            use_dictionary=strs or False,  # few distinct texts; numbers are plain or delta
+            use_dictionary=strs + few or False,  # few distinct texts; numbers plain or delta
             write_statistics=[f.name for f in schema if f.name not in strs] or False,
-            column_encoding={n: "DELTA_BINARY_PACKED" for n in ints} or None)
+            column_encoding=encodings or None)
         run = self._background.lane() if self._background is not None else run_now
         part = self._parts[key] = _Part(writer, path, run)
         self.written.append(path)
         return part
 
-    def _flush(self, part: _Part) -> None:
+    def _flush(self, part: _Part, rows: int | None = None) -> None:
+        """Hand the part's first `rows` rows (all of them by default) to its lane
+        as one row group."""
         if not part.buffer:
             return
-        table = self._pa.Table.from_batches(part.buffer, schema=self._schema)
-        part.run(part.writer.write_table, table, max(table.num_rows, 1))
-        self._buffered -= part.rows
-        part.buffer, part.rows = [], 0
+        take = part.rows if rows is None else min(rows, part.rows)
+        batches: list[tuple[list[Column], int]] = []
+        got = 0
+        while got < take:
+            cols, n = part.buffer[0]
+            if got + n <= take:
+                batches.append(part.buffer.pop(0))
+                got += n
+                continue
+            cut = take - got
+            batches.append((slice_batch(cols, 0, cut), cut))
+            part.buffer[0] = (slice_batch(cols, cut, n), n - cut)
+            got = take
+        part.rows -= take
+        self._buffered -= take
+        part.run(self._write_group, part.writer, batches, take)
+
+    def _write_group(self, writer: Any, batches: list[tuple[list[Column], int]],
+                     rows: int) -> None:
+        """One row group from kept batches (runs on a lane: numpy and Arrow work
+        without the GIL for the most part)."""
+        pa = self._pa
+        scratch = getattr(self._scratch, "arrays", None)
+        if scratch is None:
+            scratch = self._scratch.arrays = _Scratch()
+        scratch.start(rows)
+        arrays = []
+        at = 0
+        for cols, n in batches:
+            scratch.batch(at)
+            ticks: dict[int, np.ndarray] = {}
+            arrays.append([_arrow(pa, col, n, c, self._dicts, ticks, scratch)
+                           for col, c in zip(cols, self._data_cols)])
+            at += n
+        table = pa.Table.from_batches(
+            [pa.RecordBatch.from_arrays(a, schema=self._schema) for a in arrays],
+            schema=self._schema)
+        writer.write_table(table, max(rows, 1))
 
     def _close_part(self, key: tuple[Any, ...]) -> None:
         part = self._parts.pop(key)
@@ -212,6 +411,20 @@ class ParquetWriter(TableWriter):
         if not self.written:  # an empty table is still a file (its columns and metadata)
             self._open_part(())
             self._close_part(())
+
+
+def _rows_of(col: Column, rows: np.ndarray, kind: str) -> Column:
+    """Some rows (indices) of a column that is not in its frames' form."""
+    if isinstance(col, Const):
+        return col
+    if isinstance(col, Coded):
+        return Coded(col.codes[rows], col.values, col.key)
+    if isinstance(col, TickSeconds):
+        return TickSeconds(ticks_of(col.tick)[rows], col.tick_hz)
+    if isinstance(col, np.ndarray):
+        return col[rows]
+    values = list(col)
+    return [values[i] for i in rows.tolist()]
 
 
 def _clear_dataset(folder: Path, partition: Sequence[str]) -> None:

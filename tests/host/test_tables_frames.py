@@ -1,0 +1,190 @@
+"""decode's samples table from the decoder's frames' form: the same bytes as
+Python's csv module writes for the rows one by one, with every float as its repr,
+whatever the chunking of the input; Parquet holds the same values."""
+
+from __future__ import annotations
+
+import csv
+import io
+import math
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pytest
+
+from slipless.decode.decoder import Decoder, NullSink, RunState, StreamInfo
+from slipless.decode.tables import SPECS, TableSink
+from slipless.protocol import wire
+
+H, B, UH, I32, F32 = 0x68, 0x62, 0x48, 0x69, 0x66  # int16, int8, uint16, int32, float32
+STREAMS = (  # (stream, type, flags, period in ticks, scale, offset, name, unit)
+    (0, H, 0, 1000, 1e-4, 0.0, "cap_amp", "V"),
+    (1, B, wire.FLAG_STATE, 10_000, 1.0, 0.0, "coil_state", ""),
+    (2, UH, 0, 2000, 0.5, -3.25, 'a,"quoted" name', "m/s, x"),
+    (3, I32, 0, 5000, 1e-6, 1.0, "wide", "Pa"),
+    (4, F32, 0, 10_000, 2.0, 0.0, "float_s", "K"),
+)
+FW = (0, 4, 0)
+
+
+def capture(tick_hz: int, seconds: float, first_tick: int, first_seq: int,
+            streams: tuple[tuple[Any, ...], ...] = STREAMS, seed: int = 5) -> bytes:
+    """A run whose streams interleave frame by frame, with frames of varying
+    length: invented data, a scenario of our own."""
+    rng = np.random.default_rng(seed)
+    enc = wire.Encoder(1, 2, seq=first_seq)
+    out = [enc.frame(enc.descriptor(first_tick, tick_hz, FW, 5000, len(streams), streams))]
+    next_tick = {s[0]: first_tick for s in streams}
+    end = first_tick + int(seconds * 1_000_000)
+    while min(next_tick.values()) < end:
+        behind = min(next_tick.values())  # the streams keep pace, in a shuffled order
+        lagging = [s for s in streams if next_tick[s[0]] < behind + 200_000]
+        sid, typ, _, period, *_ = lagging[int(rng.integers(len(lagging)))]
+        count = int(rng.integers(1, wire.max_samples(typ) + 1))
+        tick = next_tick[sid]
+        next_tick[sid] = tick + count * period
+        out.append(enc.frame(enc.samples(sid, tick, typ, _values(rng, typ, count))))
+        if rng.random() < 0.02:
+            out.append(enc.frame(enc.status(tick, 3900, 2512, 90_000, 3, 0, 0, 40)))
+    return b"".join(out)
+
+
+def _values(rng: np.random.Generator, typ: int, n: int) -> list[Any]:
+    if typ == H:
+        return rng.normal(0, 3000, n).clip(-32768, 32767).astype(int).tolist()
+    if typ == B:
+        return rng.integers(-128, 128, n).tolist()
+    if typ == UH:
+        return rng.integers(0, 65536, n).tolist()
+    if typ == I32:
+        return rng.integers(-(2**31), 2**31, n).tolist()
+    special = [math.nan, math.inf, -math.inf, 1e-45, -0.0, 0.0, 3.0, 16777216.0]
+    floats = np.frombuffer(rng.integers(0, 2**32, n, dtype=np.uint32).tobytes(), np.float32)
+    return [special[i % len(special)] if i % 5 == 0 else float(v) for i, v in
+            enumerate(floats.tolist())]
+
+
+class Rows(NullSink):
+    """The samples one row at a time, as the decoder hands them to a row sink."""
+
+    def __init__(self) -> None:
+        self.rows: list[tuple[RunState, StreamInfo, int, int, Any]] = []
+
+    def samples(self, run: RunState, info: StreamInfo, seq: np.ndarray, tick: np.ndarray,
+                raw: np.ndarray) -> None:
+        for q, t, v in zip(seq.tolist(), tick.tolist(), raw.tolist()):
+            self.rows.append((run, info, q, t, v))
+
+
+def reference_csv(data: bytes, chunk: int) -> bytes:
+    """samples.csv as Python's csv module writes the rows (QUOTE_MINIMAL, CRLF lines:
+    RFC 4180), each float as float.__repr__ (the shortest text that reads back to
+    the same float, Python docs), a missing value as an empty cell (README). The
+    decoder hands samples over after each chunk it is fed, stream by stream, so
+    the rows come in the order of the same chunks."""
+    sink = Rows()
+    dec = Decoder(sink)
+    for at in range(0, len(data), chunk):
+        dec.feed(data[at : at + chunk])
+    dec.finish()
+    text = io.StringIO(newline="")
+    out = csv.writer(text)
+    out.writerow(SPECS["samples"].names)
+    for run, info, seq, tick, raw in sink.rows:
+        is_float = info.dtype.kind == "f"
+        value = float(raw) * info.scale + info.offset
+        out.writerow([run.board, run.run, info.stream, info.name, seq, tick,
+                      repr(tick / run.tick_hz) if run.tick_hz else "",
+                      "" if is_float else int(raw), "" if value != value else repr(value),
+                      info.unit, repr(float(raw)) if is_float and raw == raw else ""])
+    return text.getvalue().encode()
+
+
+def write_tables(data: bytes, folder: Path, fmt: str, chunk: int) -> Path:
+    sink = TableSink(folder, fmt)
+    dec = Decoder(sink)
+    for at in range(0, len(data), chunk):
+        dec.feed(data[at : at + chunk])
+    dec.finish()
+    sink.close(list(dec.runs.values()), dec.missing, dec.corrupt_guess)
+    return folder
+
+
+CODED = STREAMS[:3] + (  # samples of at most 16 bits: each value's text made once
+    (5, B, 0, 20_000, 0.25, 0.0, "g", ""), (6, H, 0, 4000, 3.0, 1.5, "n" * 32, "u" * 32))
+CASES = {  # tick rate, seconds, first tick, first seq, streams
+    "microseconds": (1_000_000, 120.0, 500_000, 97_000, CODED),  # the first second to 100 s
+    "all_types": (1_000_000, 30.0, 500_000, 97_000, STREAMS),  # wider and float samples too
+    "milliseconds": (1000, 30.0, 5_000, 0, CODED),
+    "tens_of_hz": (10, 3.0, 0, 5, CODED),
+    "odd_rate": (1_000_003, 5.0, 2_000_000, 12, CODED),
+    "late_start": (1_000_000, 20.0, 5_000_000_000_000, 4_000_000_000, CODED),  # 58 days in
+    "more_digits": (1_000_000, 20.0, 9_999_990_000_000, 99_990, CODED),  # 10**7 s, 10**5 seqs
+}
+
+
+@pytest.fixture
+def placed(monkeypatch: pytest.MonkeyPatch) -> list[int]:
+    """Rows the frames' form path placed itself (the rest went through the word matrix)."""
+    from slipless.io import table_csv
+
+    rows: list[int] = []
+    place = table_csv.FramesText._place
+
+    def counting(self: Any, plan: Any, cols: Any, n: int) -> Any:
+        got = place(self, plan, cols, n)
+        rows.append(n if got is not None else 0)
+        return got
+
+    monkeypatch.setattr(table_csv.FramesText, "_place", counting)
+    return rows
+
+
+@pytest.mark.parametrize("case", sorted(CASES))
+@pytest.mark.parametrize("chunk", [1 << 20, 244])  # a file read; one notification
+def test_samples_csv_is_the_csv_module_row_by_row(case: str, chunk: int, tmp_path: Path,
+                                                  placed: list[int]) -> None:
+    data = capture(*CASES[case])
+    folder = write_tables(data, tmp_path, "csv", chunk)
+    text = (folder / "samples.csv").read_bytes()
+    assert text == reference_csv(data, chunk)
+    if case in ("microseconds", "milliseconds", "late_start"):  # the path under test did it
+        assert sum(placed) > 0.9 * text.count(b"\n")
+
+
+def test_small_chunks_of_the_writer_change_nothing(tmp_path: Path,
+                                                   monkeypatch: pytest.MonkeyPatch) -> None:
+    from slipless.decode import tables
+    from slipless.io import table_csv
+
+    data = capture(*CASES["microseconds"], seed=9)
+    monkeypatch.setattr(tables, "SAMPLE_CHUNK", 333)  # batches cut inside frames
+    monkeypatch.setattr(table_csv, "FRAME_ROWS", 97)
+    folder = write_tables(data, tmp_path, "csv", 1 << 20)
+    assert (folder / "samples.csv").read_bytes() == reference_csv(data, 1 << 20)
+
+
+def test_parquet_holds_the_same_samples(tmp_path: Path) -> None:
+    pytest.importorskip("pyarrow")
+    from slipless.io.table_parquet import read_arrow
+
+    data = capture(*CASES["microseconds"], seed=3)
+    folder = write_tables(data, tmp_path, "parquet", 1 << 20)
+    table = read_arrow(folder / "samples")
+    got = sorted(zip(*(table.column(c).to_pylist() for c in ("stream", "seq", "tick_us", "name",
+                                                             "board_time_s", "raw", "value",
+                                                             "unit", "raw_float"))),
+                 key=lambda r: (r[0], r[1], r[2]))
+    text = reference_csv(data, 1 << 20).decode()
+    want = []
+    for r in list(csv.reader(io.StringIO(text, newline="")))[1:]:
+        want.append((int(r[2]), int(r[4]), int(r[5]), r[3], float(r[6]),
+                     int(r[7]) if r[7] else None, float(r[8]) if r[8] else None, r[9] or None,
+                     float(r[10]) if r[10] else None))
+    want.sort(key=lambda r: (r[0], r[1], r[2]))
+    assert len(got) == len(want)
+    for a, b in zip(got, want):
+        assert a[:4] == b[:4] and a[5] == b[5] and a[7] == (b[7] or "")
+        for x, y in ((a[4], b[4]), (a[6], b[6]), (a[8], b[8])):
+            assert x == y or (x is None and y is None) or (x != x and y != y)
