@@ -69,6 +69,7 @@ class Board:
         self.mirror = None  # mirror.Mirror when the config enables it (main.py)
         self.config_error = None
         self.config_saved = False  # set_config wrote a new /config.json: it runs from the next boot
+        self.fw_hash = None  # (files, bytes, sha) of the code files, read at the first FIRMWARE
         # Key set: state-changing commands must be authenticated (commands.py). The
         # counter file lives on flash; hw.auth_path None (simulations) keeps it in RAM.
         key = link_cfg["key_hex"]

@@ -1,14 +1,14 @@
 """Laptop commands: parse, validate, act, and answer every one.
 
 Each COMMAND frame gets exactly one ACK or ERROR (a PING gets a SYNC, an INFO
-one INFO frame; a RESEND gets its frames plus an ACK, or an ERROR naming what
-the ring no longer holds).
+one INFO frame, a FIRMWARE one FIRMWARE frame; a RESEND gets its frames plus an
+ACK, or an ERROR naming what the ring no longer holds).
 A bad command changes nothing. Commands are rare, so this module may allocate.
 
 A board with a key (config link.key_hex) runs the state-changing opcodes
 (wire.GUARDED: start, stop, set_config, pull) only when authenticated
-(opcode | AUTH_FLAG, trailer checked by auth.py); ping, status, resend and
-info may come either way (sealed, they are a key check: SPEC 3.9.1).
+(opcode | AUTH_FLAG, trailer checked by auth.py); ping, status, resend, info
+and firmware may come either way (sealed, they are a key check: SPEC 3.9.1).
 Anything refused gets ERROR auth and changes nothing.
 """
 
@@ -26,6 +26,9 @@ _BAD_ARGS = (ValueError, IndexError) + ((struct.error,) if hasattr(struct, "erro
 # have none unless a test gives one: the laptop's own /config.json is not the board's).
 _CONFIG_PATH = "/config.json" if ON_BOARD else None
 _READ_CHUNK = 256  # bytes of the config file hashed per read (RAM per INFO stays small)
+# What the board's "/" is here, for the firmware hash; hw.code_root overrides it
+# (simulations on CPython hash nothing unless a test gives a folder).
+_CODE_ROOT = "" if ON_BOARD else None
 
 
 def handle(board, body):
@@ -97,6 +100,9 @@ def handle(board, body):
         elif opcode == wire.CMD_INFO:
             _no_more(args, 0)
             info(board, request)
+        elif opcode == wire.CMD_FIRMWARE:
+            _no_more(args, 0)
+            firmware(board, request)
         elif opcode == wire.CMD_PULL:
             _no_more(args, 0)
             code = board.pull(request)
@@ -139,6 +145,22 @@ def info(board, request):
     cfg = board.cfg
     n = fr.info_body(request, c.now(), FW, flags, floor, min(held, 0xFFFFFFFF), sha, cfg["name"],
                      cfg["profile"])
+    fr.emit(n, fr.body)
+
+
+def firmware(board, request):
+    """One FIRMWARE frame (SPEC 3.11). The code files are read at the first ask after
+    boot, never during a run (the reading would hold up sampling): ERROR busy then."""
+    got = board.fw_hash
+    if got is None:
+        if board.running:
+            board.framer.error_now(request, wire.CMD_FIRMWARE, wire.ERR_BUSY)
+            return
+        import codehash
+
+        got = board.fw_hash = codehash.code_hash(getattr(board.hw, "code_root", _CODE_ROOT))
+    fr = board.framer
+    n = fr.firmware_body(request, min(got[0], 0xFFFF), min(got[1], 0xFFFFFFFF), got[2])
     fr.emit(n, fr.body)
 
 

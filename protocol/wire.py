@@ -34,9 +34,10 @@ ERROR = const(7)
 END = const(8)
 COMMAND = const(9)
 INFO = const(10)  # the board's identity and state, answering CMD_INFO
+FIRMWARE = const(11)  # the hash of the board's code files, answering CMD_FIRMWARE
 KIND_NAMES = {
     1: "descriptor", 2: "samples", 3: "events", 4: "status", 5: "sync",
-    6: "ack", 7: "error", 8: "end", 9: "command", 10: "info",
+    6: "ack", 7: "error", 8: "end", 9: "command", 10: "info", 11: "firmware",
 }
 
 # Command opcodes (first byte of a COMMAND body after the header).
@@ -48,8 +49,9 @@ CMD_RESEND = const(5)
 CMD_STATUS = const(6)
 CMD_PULL = const(7)  # stream the board's file mirror over the link
 CMD_INFO = const(8)  # answered by one INFO frame
+CMD_FIRMWARE = const(9)  # answered by one FIRMWARE frame (or ERROR busy during a run)
 COMMAND_NAMES = {1: "start", 2: "stop", 3: "set_config", 4: "ping", 5: "resend", 6: "status",
-                 7: "pull", 8: "info"}
+                 7: "pull", 8: "info", 9: "firmware"}
 # Opcode bit: the arguments end with u32 counter + 32-byte HMAC-SHA256 tag (SPEC 3.9.1).
 AUTH_FLAG = const(0x80)
 AUTH_TRAILER_SIZE = const(36)
@@ -117,6 +119,9 @@ END_STREAM_SIZE = const(5)
 INFO_FIXED = "<HQBBBBII"  # request, tick, fw major/minor/patch, flags, counter_floor, mirror_bytes
 INFO_FIXED_SIZE = const(22)  # then config_sha (CONFIG_SHA_SIZE bytes), name, profile (texts)
 CONFIG_SHA_SIZE = const(8)  # first bytes of SHA-256 of the board's /config.json: a check, not a seal
+FIRMWARE_FIXED = "<HHI"  # request, files hashed, their bytes; then fw_sha (FW_SHA_SIZE bytes)
+FIRMWARE_FIXED_SIZE = const(8)
+FW_SHA_SIZE = const(8)  # first bytes of SHA-256 over the board's code files (SPEC 3.11)
 COMMAND_FIXED = "<BH"  # opcode, request; then the arguments
 COMMAND_FIXED_SIZE = const(3)
 START_ARGS = "<I"  # duration_s (0: until stop); then label (short string)
@@ -140,6 +145,7 @@ END_STREAM_FIELDS = ("stream", "samples")
 COMMAND_FIELDS = ("opcode", "request")
 INFO_FIELDS = ("request", "tick", "fw_major", "fw_minor", "fw_patch", "flags", "counter_floor",
                "mirror_bytes")
+FIRMWARE_FIELDS = ("request", "files", "size")
 # INFO flags (one bit each; the rest are zero).
 INFO_KEYED = const(1)  # the board has a key: start/stop/set_config/pull must be sealed
 INFO_RUNNING = const(2)  # a run is going (the header's run id is that run)
@@ -168,6 +174,25 @@ CRC_SIZE = const(4)
 MAX_TEXT = const(32)  # names, units, labels, config keys and values
 TICK_WRAP = 1 << 32  # frames carry 32-bit ticks in SAMPLES and EVENTS
 DEFAULT_MAX_GAP_MS = const(5000)
+
+
+# ---- the firmware hash (SPEC 3.11): the same rule on the board and the laptop -----
+CODE_DIRS = ("/", "/lib/")  # where the board imports code from (sys.path '' and /lib)
+
+
+def is_code_path(path):
+    """A file FIRMWARE hashes: *.py or *.mpy directly in / or /lib."""
+    if not (path.endswith(".py") or path.endswith(".mpy")):
+        return False
+    cut = path.rfind("/") + 1
+    return path[:cut] in CODE_DIRS and cut < len(path)
+
+
+def firmware_file_prefix(path, size):
+    """What goes into the hash before a file's bytes: its board path (UTF-8), 0x00 and
+    its size as u32 LE, so a renamed or resized file changes the hash too."""
+    raw = path.encode()
+    return raw + b"\x00" + struct.pack("<I", size)
 
 
 def max_samples(type_code):
@@ -398,6 +423,19 @@ class Encoder:
     def info(self, request, tick, fw, flags, counter_floor, mirror_bytes, config_sha, name, profile):
         return self.finish(self.info_body(request, tick, fw, flags, counter_floor, mirror_bytes,
                                           config_sha, name, profile))
+
+    def firmware_body(self, request, files, size, fw_sha):
+        """Write a FIRMWARE body into self.body; return its length (see info_body)."""
+        off = self.begin(FIRMWARE)
+        struct.pack_into(FIRMWARE_FIXED, self.body, off, request, files, size)
+        off += FIRMWARE_FIXED_SIZE
+        if len(fw_sha) != FW_SHA_SIZE:
+            raise ValueError("fw_sha must be FW_SHA_SIZE bytes")
+        self.body[off : off + FW_SHA_SIZE] = fw_sha
+        return off + FW_SHA_SIZE
+
+    def firmware(self, request, files, size, fw_sha):
+        return self.finish(self.firmware_body(request, files, size, fw_sha))
 
     # -- laptop -> board (seq is the laptop's own command counter) --
     def command(self, opcode, request, args=b""):

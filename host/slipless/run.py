@@ -64,6 +64,15 @@ class RunSink(Tee):
                                self._origin.get(origin, -1), arrival.source if kind >= 0 else -1,
                                offset, arrival.wall_ns)
 
+    def received_frames(self, run: RunState, seq0: int, offsets: np.ndarray, origin: str,
+                        arrival: Arrival) -> None:
+        super().received_frames(run, seq0, offsets, origin, arrival)
+        if self.hold:  # the rows frame() keeps for each of them
+            fate, how = self._fate["received"], self._origin.get(origin, -1)
+            for q, offset in enumerate(offsets.tolist()):
+                self.frames.append(run.board, run.run, seq0 + q, wire.SAMPLES, fate, how,
+                                   arrival.source, offset, arrival.wall_ns)
+
 
 @dataclass
 class Run:
@@ -82,12 +91,19 @@ class Run:
 
     def metadata(self) -> list[dict[str, Any]]:
         """Per input: its path, kind and, for a capture, its header (label, operator,
-        amplifier, rig (the prediction JSON), recorder, laptop, dates)."""
-        from slipless.io.capture_meta import capture_header
+        amplifier, rig, recorder, laptop, dates), `prediction` (the header's rig: the
+        `slipless predict --json` document given to record, or None) and `boards`
+        (per board that answered at connect: fw version, name, profile, config_sha,
+        fw_sha and the rest of its `board` event, CAPTURE.md)."""
+        from slipless.io.capture_meta import board_facts, capture_header
 
-        return [{"path": str(s.path), "kind": s.kind,
-                 "header": capture_header(s.path) if s.kind == "capture" else None}
-                for s in self.sources]
+        out = []
+        for s in self.sources:
+            header = capture_header(s.path) if s.kind == "capture" else None
+            out.append({"path": str(s.path), "kind": s.kind, "header": header,
+                        "prediction": (header or {}).get("rig"),
+                        "boards": board_facts(s.path) if header is not None else []})
+        return out
 
     def calibrate(self, cal: Any) -> list[str]:
         """Apply a calibration (calib.file.Calibration, or a path to its file) to the
@@ -146,8 +162,10 @@ class Run:
         return document(self.loss(**options), self.facts, max_loss)
 
     def align(self, out: Path | str, grid: str | int = "10ms", fmt: str = "csv",
-              window_s: float = 600.0) -> Any:
-        """Fit every board clock and write the aligned tables and the grid (align.AlignResult)."""
+              window_s: float = 600.0, asymmetry_s: float = 0.0) -> Any:
+        """Fit every board clock and write the aligned tables and the grid (align.AlignResult).
+        asymmetry_s: how much longer the least latency board -> laptop is than the
+        other way (`align --asymmetry`)."""
         from slipless.align.aligned import align_collected
         from slipless.align.period import parse_period
 
@@ -155,14 +173,15 @@ class Run:
             period = grid if isinstance(grid, int) else parse_period(grid)
         except ValueError as exc:
             raise InputError(f"grid: {exc}") from exc
-        return align_collected(self.collected, Path(out), fmt, period, window_s)
+        return align_collected(self.collected, Path(out), fmt, period, window_s, asymmetry_s)
 
-    def clocks(self, window_s: float = 600.0) -> dict[Key, Any]:
+    def clocks(self, window_s: float = 600.0, asymmetry_s: float = 0.0) -> dict[Key, Any]:
         """The clock model of every run (align.RunClock), nothing written."""
         from slipless.align.aligned import _extents, fit_run
 
         col = self.collected
-        return {key: fit_run(col, key, ext, window_s) for key, ext in sorted(_extents(col).items())}
+        return {key: fit_run(col, key, ext, window_s, asymmetry_s)
+                for key, ext in sorted(_extents(col).items())}
 
     def pulse_runs(self) -> list[Any]:
         """Every run as named series in board time (pulses_data.RunData)."""
@@ -189,12 +208,14 @@ class Run:
 
     def report(self, out: Path | str, prediction: Path | str | None = None,
                title: str = "slipless run report", subtitle: str = "",
-               calibration: Path | str | None = None) -> Path:
-        """The self-contained HTML report; returns its path."""
+               calibration: Path | str | None = None,
+               streams: dict[str, Any] | None = None) -> Path:
+        """The self-contained HTML report; returns its path. streams: the stream
+        names as `slipless report --signal/--current/--rotation` take them."""
         from slipless.report.page import collect, write
 
         data = collect(self, None if prediction is None else Path(prediction),
-                       None if calibration is None else Path(calibration))
+                       None if calibration is None else Path(calibration), streams=streams)
         return Path(write(data, Path(out), title, subtitle))
 
     # ---- columns ----------------------------------------------------------------------

@@ -236,6 +236,14 @@ def cases():
             op(1, 3, "events", events=[[2_010_000_000, wire.EV_LINK, 1]], seq=31)], [])
     yield ("tick-limit", "an anchor whose tick is 2**62 us or later is malformed",
            [desc(1, 7, 0, [CAP]), status(1, 7, 1 << 62), samples(1, 7, 0, 1000, h_, [1])], [])
+    yield ("firmware", "FIRMWARE replies (SPEC 3.11: a board with two code files, one with none) "
+           "and the FIRMWARE command, plain and sealed",
+           [op(1, 7, "firmware", request=9, files=len(FW_FILES),
+               size=sum(len(d) for d in FW_FILES.values()), fw_sha=FW_SHA),
+            op(2, 1, "firmware", request=65535, files=0, size=0,
+               fw_sha="00" * wire.FW_SHA_SIZE),
+            op(0xFFFF, 0, "command", opcode=wire.CMD_FIRMWARE, request=8, args=""),
+            sealed(1, wire.CMD_FIRMWARE, 9, b"", 4)], [])
 
 
 AUTH_KEY = bytes(range(32))  # the vector's key (common practice: any 32 bytes)
@@ -243,6 +251,21 @@ AUTH_KEY = bytes(range(32))  # the vector's key (common practice: any 32 bytes)
 # a config file's bytes as `slipless flash` writes them (compact JSON).
 INFO_CONFIG_TEXT = b'{"board_id":1,"name":"rotor-a"}'
 INFO_SHA = hashlib.sha256(INFO_CONFIG_TEXT).digest()[: wire.CONFIG_SHA_SIZE].hex()
+
+
+# FIRMWARE's fw_sha (SPEC 3.11): SHA-256 (FIPS 180-4, CPython's hashlib) over the code
+# files in bytewise path order, each as path, 0x00, u32 LE size, bytes. Invented files.
+FW_FILES = {"/main.py": b"import board\n", "/lib/wire.mpy": bytes(range(0x4D, 0x4D + 40))}
+
+
+def _fw_sha(files):
+    h = hashlib.sha256()
+    for path in sorted(files):
+        h.update(path.encode() + b"\x00" + struct.pack("<I", len(files[path])) + files[path])
+    return h.digest()[: wire.FW_SHA_SIZE].hex()
+
+
+FW_SHA = _fw_sha(FW_FILES)
 
 
 def sealed(seq, opcode, request, args, counter):
@@ -474,7 +497,7 @@ def _content(exp, o, key, seq, periods):
         exp["status"].append([b, r, seq, a["tick"], a["battery_mv"], a["temp_cdeg"],
                               a["free_ram"], a["queue_high"], a["dropped"], a["late"],
                               a["jitter_us"]])
-    elif o["op"] in ("sync", "ack", "error", "end", "info"):
+    elif o["op"] in ("sync", "ack", "error", "end", "info", "firmware"):
         exp["replies"].append([b, r, seq, o["op"]])
 
 

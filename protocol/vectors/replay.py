@@ -47,6 +47,8 @@ def _one(enc, op):
     elif name == "info":
         n = enc.info(a["request"], a["tick"], a["fw"], a["flags"], a["counter_floor"],
                      a["mirror_bytes"], bytes.fromhex(a["config_sha"]), a["name"], a["profile"])
+    elif name == "firmware":
+        n = enc.firmware(a["request"], a["files"], a["size"], bytes.fromhex(a["fw_sha"]))
     elif name == "start":
         n = enc.start(a["request"], a["duration_s"], a["label"])
     elif name == "stop":

@@ -13,6 +13,7 @@ Prints one line per figure, then one JSON line with every figure:
   board_alloc_bytes_per_frame, board_frame_us, board_loop_us   board code on MicroPython
   record_kBps, sink_kBps, record_host_drops   recorder over bumble's virtual link
   align_p99_ms, align_lsq_p99_ms, align_err_over_u, align_seconds_1M   clock fit (bench_align.py)
+  align_ci_p99_ms, align_ci_err_over_u, align_sine_p99_ms   connection-interval link, sine skew
   fuzz_cases, fuzz_false_accepts, fuzz_intact_recovered   corrupted frames read (bench_fuzz.py)
   decode_csv_MBps, decode_parquet_MBps, decode_parquet_rss_MB   decode into tables (bench_tables.py)
   demo_seconds          wall time of `slipless demo` (bench_demo.py)

@@ -21,7 +21,15 @@ from hypothesis import strategies as st
 
 from slipless.decode import decoder as decoder_mod
 from slipless.decode import frames
-from slipless.decode.decoder import STREAM, Arrival, Decoder, NullSink, RunState, StreamInfo
+from slipless.decode.decoder import (
+    STREAM,
+    Arrival,
+    Decoder,
+    NullSink,
+    RunState,
+    StreamInfo,
+    Tee,
+)
 from slipless.decode.deframe import FastDeframer
 from slipless.protocol import wire
 from slipless.sim.board import SimConfig, simulate
@@ -187,6 +195,31 @@ class FramesForm(SamplesOnly):
         tick = [t + i * info.period_us for t, c in zip(ticks.tolist(), counts.tolist())
                 for i in range(c)]
         self.rows.add(run, info, np.array(seq, np.int64), np.array(tick, np.int64), raw)
+
+
+class Stretches(Recorder):
+    """Takes frames received in order in one call (received_frames): recorded as
+    the frame() calls they stand for, so the calls equal the reference's."""
+
+    def received_frames(self, run: RunState, seq0: int, offsets: np.ndarray, origin: str,
+                        arrival: Arrival) -> None:
+        for q, offset in enumerate(offsets.tolist()):
+            self.frame(run, seq0 + q, wire.SAMPLES, "received", offset, origin, arrival)
+
+
+class TeeOfRecorder(Tee):
+    """A Tee holding a sink with frame() only: the Tee hands stretches to it frame by frame."""
+
+    def __init__(self) -> None:
+        super().__init__(Recorder())
+
+    @property
+    def calls(self) -> list[tuple[Any, ...]]:
+        return self.sinks[0].calls
+
+    @property
+    def rows(self) -> Any:
+        return self.sinks[0].rows
 
 
 class Counting(NullSink):
@@ -377,7 +410,8 @@ def run_both(rng: random.Random, sink_type: type) -> None:
 
 
 @settings(max_examples=60, deadline=None)
-@given(st.integers(0, 2**32), st.sampled_from([Recorder, SamplesOnly, FramesForm, Counting]))
+@given(st.integers(0, 2**32), st.sampled_from([Recorder, SamplesOnly, FramesForm, Counting,
+                                              Stretches, TeeOfRecorder]))
 def test_block_path_equals_per_frame_reference(seed: int, sink_type: type) -> None:
     """Blocks and sample pieces small enough that short streams cross them often."""
     rng = random.Random(seed)
@@ -389,7 +423,7 @@ def test_block_path_equals_per_frame_reference(seed: int, sink_type: type) -> No
 
 
 @settings(max_examples=20, deadline=None)
-@given(st.integers(0, 2**32), st.sampled_from([Recorder, SamplesOnly, FramesForm]))
+@given(st.integers(0, 2**32), st.sampled_from([Recorder, SamplesOnly, FramesForm, Stretches]))
 def test_default_sizes_equal_reference(seed: int, sink_type: type) -> None:
     """The shipped thresholds, on streams long enough for real blocks."""
     run_both(random.Random(seed), sink_type)
@@ -498,3 +532,26 @@ def test_crc_check_is_the_residue() -> None:
     body = b"123456789"
     assert zlib.crc32(body) == 0xCBF43926  # the catalogue check value of CRC-32/ISO-HDLC
     assert zlib.crc32(body + zlib.crc32(body).to_bytes(4, "little")) == 0x2144DF1C
+
+
+def test_run_sink_keeps_every_frame_of_a_stretch() -> None:
+    """The Run's frames columns and loss facts hold the same rows whether frames
+    come one by one (the reference decoder) or as received_frames stretches."""
+    from slipless.align.collect import AlignSink
+    from slipless.loss.collect import LossSink
+    from slipless.run import RunSink
+
+    data = b"".join(transmit((f for _, f in simulate(SimConfig(seconds=20, seed=3))),
+                             ChannelConfig(seed=4, drop_chunk=0.01), ChannelLog()))
+    got = []
+    for dec_type in (RefDecoder, Decoder):
+        sink = RunSink(LossSink(None), AlignSink(), None, hold=True)
+        dec = dec_type(sink)
+        dec.feed(data)
+        dec.finish()
+        frames = sink.frames.arrays()
+        got.append({k: v.tolist() for k, v in frames.items()})
+        got.append(sorted((k, [c.tolist() for c in f.copies.columns()])
+                          for k, f in sink.loss.runs.items()))
+    assert got[0] == got[2] and got[1] == got[3]
+    assert len(got[0]["seq"]) > 100

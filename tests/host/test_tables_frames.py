@@ -188,3 +188,31 @@ def test_parquet_holds_the_same_samples(tmp_path: Path) -> None:
         assert a[:4] == b[:4] and a[5] == b[5] and a[7] == (b[7] or "")
         for x, y in ((a[4], b[4]), (a[6], b[6]), (a[8], b[8])):
             assert x == y or (x is None and y is None) or (x != x and y != y)
+
+
+def test_parquet_samples_schema_and_a_run_without_tick_rate(tmp_path: Path) -> None:
+    """The columns every sample has are required Parquet fields (no definition
+    levels), the rest optional; page statistics only on the key columns. A
+    descriptor with tick_hz 0 still writes its samples, board_time_s null."""
+    pytest.importorskip("pyarrow")
+    import pyarrow.parquet as pq
+
+    from slipless.io.table_parquet import read_arrow
+
+    folder = write_tables(capture(*CASES["all_types"], seed=4), tmp_path / "a", "parquet", 1 << 20)
+    files = sorted((folder / "samples").rglob("*.parquet"))
+    assert len(files) == len(STREAMS)  # a file per stream
+    for f in files:
+        meta = pq.ParquetFile(f)
+        fields = {c.name: c.max_definition_level for c in meta.schema}
+        assert {k for k, v in fields.items() if v == 0} == {"stream", "name", "seq", "tick_us",
+                                                            "unit"}
+        group = meta.metadata.row_group(0)
+        stats = {group.column(i).path_in_schema for i in range(group.num_columns)
+                 if group.column(i).is_stats_set}
+        assert stats == {"stream", "seq", "tick_us", "board_time_s"}
+
+    still = capture(0, 2.0, 0, 0, CODED[:1])
+    table = read_arrow(write_tables(still, tmp_path / "b", "parquet", 1 << 20) / "samples")
+    assert table.num_rows > 0 and table.column("board_time_s").null_count == table.num_rows
+    assert table.column("tick_us").null_count == 0

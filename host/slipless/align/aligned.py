@@ -93,11 +93,12 @@ def align_files(inputs: Sequence[Path], out: Path, fmt: str, period_ns: int, win
 
 
 def align_collected(col: Collected, out: Path, fmt: str, period_ns: int,
-                    window_s: float) -> AlignResult:
-    """Fit every run's clock and write the aligned tables, the grid and clock.json."""
+                    window_s: float, asymmetry_s: float = 0.0) -> AlignResult:
+    """Fit every run's clock and write the aligned tables, the grid and clock.json.
+    asymmetry_s: least latency board -> laptop minus laptop -> board (fit_clock)."""
     out_folder(out)
     extents = _extents(col)
-    clocks = {key: fit_run(col, key, extents[key], window_s) for key in sorted(extents)}
+    clocks = {key: fit_run(col, key, extents[key], window_s, asymmetry_s) for key in sorted(extents)}
     result = AlignResult(clocks, notes=list(col.decoder.notes))
     _write_samples(col, clocks, out, fmt)
     _write_events(col, clocks, out, fmt)
@@ -130,7 +131,8 @@ def _extents(col: Collected) -> dict[Key, tuple[int, int]]:
     return {k: (v[0], v[1]) for k, v in span.items()}
 
 
-def fit_run(col: Collected, key: Key, extent: tuple[int, int], window_s: float) -> RunClock:
+def fit_run(col: Collected, key: Key, extent: tuple[int, int], window_s: float,
+            asymmetry_s: float = 0.0) -> RunClock:
     run = col.decoder.runs.get(key)
     clock = RunClock(key, float(run.tick_hz) if run is not None and run.tick_hz else 1e6)
     times = col.sink.times.get(key, RunTimes())
@@ -149,7 +151,8 @@ def fit_run(col: Collected, key: Key, extent: tuple[int, int], window_s: float) 
     rows = rows[np.isin(rows[:, 3], same)]
     ex = _exchanges(times, same)
     try:
-        clock.model = fit_clock(rows[:, 0], rows[:, 1], ex, clock.tick_hz, window_s, extent)
+        clock.model = fit_clock(rows[:, 0], rows[:, 1], ex, clock.tick_hz, window_s, extent,
+                                asymmetry_s)
     except FitError as exc:
         clock.notes.append(f"no clock fit: {exc}")
         return clock

@@ -21,11 +21,13 @@ chose (small numbers: subtract a base first, float64 keeps ns then).
 from __future__ import annotations
 
 import numpy as np
+from scipy import sparse
 from scipy.optimize import linprog
 
 from slipless.errors import FitError  # noqa: F401
 
 _BLOCK = 256  # prefilter block: its lowest point sits close to the envelope
+_MIN_BLOCK = 16  # below this a block's lowest point is too far up to drop much
 _LP_SCALE = 1e3  # solve in ms: the LP's absolute tolerances (~1e-7) are then sub-ns
 
 
@@ -63,17 +65,18 @@ def _prefilter(xs: np.ndarray, ys: np.ndarray) -> np.ndarray:
     """Mask of points not strictly above the chord joining the lowest points
     of the neighbouring blocks (xs strictly increasing)."""
     n = xs.size
-    nb = n // _BLOCK
+    block = _BLOCK if n >= 8 * _BLOCK else max(_MIN_BLOCK, n // 8)  # small windows: small blocks
+    nb = n // block
     keep = np.ones(n, dtype=bool)
     if nb < 3:
         return keep
-    body = slice(0, nb * _BLOCK)
-    low = np.argmin(ys[body].reshape(nb, _BLOCK), axis=1) + np.arange(nb) * _BLOCK
+    body = slice(0, nb * block)
+    low = np.argmin(ys[body].reshape(nb, block), axis=1) + np.arange(nb) * block
     qx, qy = xs[low[:-2]], ys[low[:-2]]  # left neighbour's lowest point, per middle block
     rx, ry = xs[low[2:]], ys[low[2:]]
-    mid = slice(_BLOCK, (nb - 1) * _BLOCK)
-    px = xs[mid].reshape(nb - 2, _BLOCK)
-    py = ys[mid].reshape(nb - 2, _BLOCK)
+    mid = slice(block, (nb - 1) * block)
+    px = xs[mid].reshape(nb - 2, block)
+    py = ys[mid].reshape(nb - 2, block)
     above = ((rx - qx)[:, None] * (py - qy[:, None]) - (ry - qy)[:, None] * (px - qx[:, None])) > 0
     keep[mid] = ~above.ravel()
     return keep
@@ -153,7 +156,7 @@ def fit_envelope(x: np.ndarray, y: np.ndarray, knots: np.ndarray,
                                 -np.asarray(floor[1], dtype=np.float64), knots, need_two=False)
         a.append(-a_lo)
         b.append(b_lo + base)
-    res = linprog(-weight, A_ub=np.vstack(a), b_ub=np.concatenate(b) * _LP_SCALE,
+    res = linprog(-weight, A_ub=sparse.vstack(a, format="csr"), b_ub=np.concatenate(b) * _LP_SCALE,
                   bounds=(None, None), method="highs")
     if res.status != 0:
         raise FitError(f"envelope LP: {res.message}")
@@ -167,7 +170,7 @@ def _hull_rows(x: np.ndarray, y: np.ndarray, knots: np.ndarray,
     need_two: every window must have two distinct times (the points that hold
     the curve from above; with fewer it could tilt without bound)."""
     win, lam, yv = window_vertices(x, y, knots, need_two=need_two)
-    return _rows(win, lam, knots.size), yv
+    return _sparse_rows(win, lam, knots.size), yv
 
 
 def window_vertices(x: np.ndarray, y: np.ndarray, knots: np.ndarray, upper: bool = False,
@@ -180,8 +183,7 @@ def window_vertices(x: np.ndarray, y: np.ndarray, knots: np.ndarray, upper: bool
     win, lam = windows_of(x, knots)
     sign = -1.0 if upper else 1.0
     verts = []
-    for k in range(knots.size - 1):
-        sel = np.flatnonzero(win == k)
+    for k, sel in enumerate(_by_window(win, knots.size - 1)):
         h = sel[lower_hull(x[sel], sign * y[sel])]
         if need_two and h.size < 2:
             raise FitError(f"window {k} needs points at two distinct times at least")
@@ -194,9 +196,23 @@ def hull_candidates(x: np.ndarray, y: np.ndarray, knots: np.ndarray) -> np.ndarr
     """Indices of each window's lower hull vertices: they hold the hull
     vertices of any window made of whole windows of these knots."""
     win, _ = windows_of(np.asarray(x, dtype=np.float64), knots)
-    parts = [sel[lower_hull(x[sel], y[sel])] for sel in
-             (np.flatnonzero(win == k) for k in range(knots.size - 1))]
+    parts = [sel[lower_hull(x[sel], y[sel])] for sel in _by_window(win, knots.size - 1)]
     return np.sort(np.concatenate(parts)).astype(np.int64) if parts else np.zeros(0, dtype=np.int64)
+
+
+def _by_window(win: np.ndarray, n: int) -> list[np.ndarray]:
+    """Indices of the points in each of n windows, ascending (one stable sort,
+    not a scan of every point per window)."""
+    order = np.argsort(win, kind="stable")
+    return np.split(order, np.searchsorted(win[order], np.arange(1, n)))
+
+
+def _sparse_rows(win: np.ndarray, lam: np.ndarray, nk: int) -> sparse.csr_matrix:
+    """`_rows` as a sparse matrix: two weights a row, however many knots
+    (a day in short pieces would make the dense one tens of MB)."""
+    n = win.size
+    return sparse.csr_matrix((np.r_[1 - lam, lam], (np.r_[np.arange(n), np.arange(n)],
+                                                     np.r_[win, win + 1])), shape=(n, nk))
 
 
 def _rows(win: np.ndarray, lam: np.ndarray, nk: int, first: int = 0) -> np.ndarray:

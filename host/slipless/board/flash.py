@@ -25,6 +25,7 @@ from slipless.errors import (
     InputError,
 )
 from slipless.io.json_text import parse_json
+from slipless.protocol import wire
 
 DEFAULT_PROFILE = "esp32-devkitc"
 ROOT_SOURCES = ("boot.py", "main.py")  # the board runs these from / as source
@@ -198,6 +199,19 @@ def build_plan(fw: Path, config: dict, profile: dict, out_dir: Path) -> list[Ite
         if (fw / name).is_file():
             plan.append(Item("/" + name, (fw / name).read_bytes(), f"firmware/{name}"))
     return plan
+
+
+def firmware_hash(plan: list[Item]) -> tuple[int, int, str]:
+    """SPEC 3.11's hash of the plan's code files (what the board's FIRMWARE reply
+    hashes once they are on it) -> (files, bytes, fw_sha hex)."""
+    code = sorted((it for it in plan if wire.is_code_path(it.dest)), key=lambda it: it.dest)
+    if not code:
+        return 0, 0, "00" * wire.FW_SHA_SIZE
+    h = hashlib.sha256()
+    for it in code:
+        h.update(wire.firmware_file_prefix(it.dest, len(it.data)))
+        h.update(it.data)
+    return len(code), sum(len(it.data) for it in code), h.digest()[: wire.FW_SHA_SIZE].hex()
 
 
 def native_arch_code(arch: str, out_dir: Path) -> int:

@@ -5,6 +5,7 @@
     rows = query(Path("bench-week"), "loss_percent < 1")
     analysis, which = pulses_together(Path("bench-week"), rows)
     export(Path("bench-week"), Path("archive"))
+    # one HTML page across the runs: slipless.campaign.report.collect / write
 
 The catalogue is FOLDER/campaign.sqlite (the standard library's sqlite3):
 a derived file, rebuilt from the captures at any time.

@@ -161,9 +161,14 @@ def decode_files(inputs: Sequence[Path], out: Path, fmt: str, console: Console |
 
     run = open_run(inputs, mirrors, tables=out, table_format=fmt, progress=bytes_progress(console),
                    hold=False)
-    # what each capture's header says of the run (label, operator, amplifier, rig...)
-    (out / "inputs.json").write_text(json.dumps({"inputs": run.metadata()}, indent=1,
-                                                default=str) + "\n")
+    from slipless.report.decoded import sha256_of
+
+    # what each capture's header says of the run (label, operator, amplifier, rig...), and
+    # each input's SHA-256, so `slipless report DIR` can tell the captures are the same
+    meta = run.metadata()
+    for m in meta:
+        m["sha256"] = sha256_of(Path(m["path"]))
+    (out / "inputs.json").write_text(json.dumps({"inputs": meta}, indent=1, default=str) + "\n")
     return run.decoder
 
 
@@ -191,9 +196,13 @@ def print_summary(dec: Decoder, console: Console) -> None:
                   str(r.events), end)
     print_table(console, t)
     c = dec.counters
+    damaged = c.corrupt + c.overlong + c.file_damaged
+    in_files = (f"; {c.file_damaged:,} of them stretches of capture files skipped, "
+                f"{c.file_damaged_bytes:,} B" if c.file_damaged else "")
     console.print(
-        f"bytes {c.bytes:,}  good frames {c.frames:,}  damaged segments {c.corrupt + c.overlong:,} "
-        f"({c.corrupt_bytes:,} B)  skipped at start {c.skipped_bytes:,} B")
+        f"bytes {c.bytes:,}  good frames {c.frames:,}  damaged segments {damaged:,} "
+        f"({c.corrupt_bytes + c.file_damaged_bytes:,} B{in_files})  "
+        f"skipped at start {c.skipped_bytes:,} B")
     notes = []
     if c.unknown_kind:
         notes.append(f"{c.unknown_kind} frames of a kind this release does not know were skipped")

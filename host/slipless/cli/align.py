@@ -13,7 +13,7 @@ from typing import Any
 from rich.console import Console
 
 from slipless.align.period import UNITS_NS as _UNITS_NS
-from slipless.align.period import parse_period
+from slipless.align.period import parse_period, parse_signed_time
 from slipless.cli.text_tables import column, print_table, table
 
 
@@ -21,6 +21,14 @@ def period_ns(text: str) -> int:
     """'1ms', '10ms', '0.5s', '250us' -> nanoseconds (an argparse type)."""
     try:
         return parse_period(text)
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from exc
+
+
+def signed_ns(text: str) -> int:
+    """'1.4ms', '-0.3ms', '0ms' -> nanoseconds (an argparse type)."""
+    try:
+        return parse_signed_time(text)
     except ValueError as exc:
         raise argparse.ArgumentTypeError(str(exc)) from exc
 
@@ -36,8 +44,11 @@ def add_parser(sub: Any) -> None:
     a.add_argument("--mirror", type=Path, action="append", default=[], metavar="FILE",
                    help="the board's file mirror, merged after the inputs (repeatable)")
     a.add_argument("--window", type=period_ns, default=period_ns("10min"), metavar="PERIOD",
-                   help="length of the clock model's pieces (default 10min; drift is followed "
-                        "across pieces)")
+                   help="longest piece of the clock model (default 10min); pieces of a half, "
+                        "quarter or eighth of it where the data ask (a bending clock)")
+    a.add_argument("--asymmetry", type=signed_ns, default=0, metavar="TIME",
+                   help="least latency board -> laptop minus laptop -> board, e.g. 1.4ms for "
+                        "notifications with a long air time (default 0: equal both ways)")
     a.add_argument("--format", choices=FORMATS, default="csv", help="table format (default csv)")
     a.add_argument("--json", action="store_true", help="print the clock model as JSON instead of a table")
     a.add_argument("--quiet", action="store_true", help="no progress bar or summary")
@@ -64,7 +75,10 @@ def run_align(args: argparse.Namespace, console: Console) -> int:
         if show:
             console.print(f"calibration {args.calibration.name}: "
                           f"{', '.join(done) or 'no stream of these inputs'} corrected")
-    result = run.align(args.out, args.grid, args.format, args.window / 1e9)
+    from slipless.align.aligned import align_collected
+
+    result = align_collected(run.collected, args.out, args.format, args.grid, args.window / 1e9,
+                             args.asymmetry / 1e9)
     if args.json:
         print(json.dumps(result.to_json(), indent=2))
         return 0
@@ -107,6 +121,13 @@ def print_models(result: Any, console: Console) -> None:
                   "delay: one-way delay above the fit, median/95th percentile (the residual spread); "
                   "±: bound on the mapped time's error over the run (align/clockmodel.py says how it is "
                   "made); basis: time-sync exchanges and receive times, or receive times only")
+    if any(c.model is not None and c.model.kept for c in result.clocks.values()):
+        asym = max((abs(c.model.asymmetry_s) for c in result.clocks.values() if c.model is not None),
+                   default=0.0)
+        split = "equal both ways" if asym == 0 else "as --asymmetry says"
+        notes.append(f"level: the pings measure the sum of both ways' least latency, not its split; "
+                     f"it is taken {split} (a notification's longer air time makes the board -> "
+                     "laptop way slower and the laptop times late by half the difference)")
     if any(c.model is not None and not c.model.kept for c in result.clocks.values()):
         notes.append("one-way only: without time-sync exchanges the laptop time includes the link's "
                      "least latency, which receive times alone cannot measure (not in ±)")

@@ -56,13 +56,9 @@ def _predict(p: argparse.ArgumentParser) -> None:
     p.add_argument("--json", action="store_true", help="print JSON (for `slipless pulses --prediction`)")
 
 
-def _pulses(p: argparse.ArgumentParser) -> None:
-    p.add_argument("inputs", nargs="+", type=Path, metavar="INPUT",
-                   help="captures, raw streams, or folders written by `slipless decode`")
-    p.add_argument("--out", type=Path, required=True, metavar="DIR", help="folder for tables and plots")
-    p.add_argument("--mirror", type=Path, action="append", default=[], metavar="FILE",
-                   help="the board's file mirror, merged after the inputs (repeatable)")
-    p.add_argument("--format", choices=FORMATS, default="csv", help="table format (default csv)")
+def add_stream_options(p: argparse.ArgumentParser) -> None:
+    """Which streams are the signal, the coil current and the rotation rate
+    (`slipless pulses` and `slipless report`)."""
     ch = p.add_argument_group("channels")
     ch.add_argument("--signal", default=DEFAULTS["signal"], metavar="NAME", help="amplifier stream")
     ch.add_argument("--current", default=DEFAULTS["current"], metavar="NAME", help="coil current stream")
@@ -70,6 +66,19 @@ def _pulses(p: argparse.ArgumentParser) -> None:
                     help="rotation-rate stream in rad/s (default gyro_z or rotation_rate)")
     ch.add_argument("--rotation-rate", action="append", metavar="[BOARD:RUN=]RATE",
                     help="rate for runs without a rotation stream, rad/s or e.g. 60rpm (repeatable)")
+
+
+STREAM_OPTIONS = ("signal", "current", "rotation", "rotation_rate")  # what add_stream_options sets
+
+
+def _pulses(p: argparse.ArgumentParser) -> None:
+    p.add_argument("inputs", nargs="+", type=Path, metavar="INPUT",
+                   help="captures, raw streams, or folders written by `slipless decode`")
+    p.add_argument("--out", type=Path, required=True, metavar="DIR", help="folder for tables and plots")
+    p.add_argument("--mirror", type=Path, action="append", default=[], metavar="FILE",
+                   help="the board's file mirror, merged after the inputs (repeatable)")
+    p.add_argument("--format", choices=FORMATS, default="csv", help="table format (default csv)")
+    add_stream_options(p)
     pu = p.add_argument_group("pulses and windows (defaults from the coil's measured rise time)")
     pu.add_argument("--pulses-from", choices=("auto", "events", "current"), default=DEFAULTS["pulses_from"],
                     help="coil events or the current threshold (default: events if any)")

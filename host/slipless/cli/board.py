@@ -1,7 +1,8 @@
 """`slipless board ...`: find boards in range and talk to one outside a run.
 
     slipless board find     boards advertising the slipless service: name, address, RSSI
-    slipless board status   one line: identity, battery, temperature, RAM, config, key, run
+    slipless board status   one line: identity, battery, temperature, RAM, config, firmware,
+                            key, run
     slipless board stop     STOP (coil off, run ended), confirmed by the board
     slipless board ping     round trips and the clock offset (RFC 5905 on-wire formulas)
 
@@ -103,6 +104,9 @@ def add_parser(sub: Any) -> None:
     _add_key(s, "do not check the key (status is read either way)")
     s.add_argument("--config", type=Path, metavar="FILE",
                    help="the config file the board was flashed with: compare its hash")
+    s.add_argument("--firmware", action="store_true",
+                   help="compare the board's firmware hash with the code files this laptop's "
+                        "`slipless flash` would copy (compiles them with mpy-cross)")
     s.add_argument("--json", action="store_true", help="one JSON document instead of a line")
 
     t = cmds.add_parser("stop", help="stop the board's run and switch its coil off")
@@ -248,8 +252,11 @@ async def _status(args: argparse.Namespace, console: Console) -> int:
         key_hex = keys.load_key(key).hex() if key.is_file() else None
         return control.laptop_config_sha(args.config, info.profile, key_hex)
 
+    def laptop_fw(info: Any) -> tuple[Any, str]:
+        return control.laptop_firmware(info.profile)
+
     report = await _with_board(args, lambda link: control.read_status(
-        link, _key_chooser(args), laptop_sha))
+        link, _key_chooser(args), laptop_sha, laptop_fw if args.firmware else None))
     info, st = report.info, report.status
     if args.json:
         _out(console, json.dumps({
@@ -258,6 +265,7 @@ async def _status(args: argparse.Namespace, console: Console) -> int:
             "temp_c": st["temp_cdeg"] / 100, "free_ram_b": st["free_ram"],
             "config_sha": info.config_sha, "config_match": report.config_match,
             "config_note": report.config_note or _config_state(info),
+            **_firmware_json(report),
             "key_check": report.key_check, "running": info.has(wire.INFO_RUNNING),
             "run": info.run, "coil_on": info.has(wire.INFO_COIL_ON), "uptime_s": info.uptime_s,
             "counter_floor": info.counter_floor, "mirror_bytes": info.mirror_bytes,
@@ -265,6 +273,28 @@ async def _status(args: argparse.Namespace, console: Console) -> int:
         return 0
     _out(console, status_line(report, args.config))
     return 0
+
+
+def _firmware_json(report: Any) -> dict[str, Any]:
+    fw = report.firmware
+    return {"fw_sha": fw.fw_sha if fw else None, "fw_files": fw.files if fw else None,
+            "fw_bytes": fw.size if fw else None, "fw_match": report.firmware_match,
+            "fw_note": report.firmware_note}
+
+
+def firmware_text(report: Any) -> str:
+    """The status line's firmware part: the hash and what it was compared with."""
+    fw = report.firmware
+    if fw is None:
+        return f"firmware hash not reported ({report.firmware_note})"
+    text = f"firmware {fw.fw_sha} ({fw.files} files)" if fw.files else "firmware: no code files"
+    if report.firmware_match is True:
+        text += " (same as this laptop's flash)"
+    elif report.firmware_match is False:
+        text += " (differs from this laptop's flash)"
+    elif report.firmware_note:
+        text += f" ({report.firmware_note})"
+    return text
 
 
 def _config_state(info: Any) -> str:
@@ -293,7 +323,8 @@ def status_line(report: Any, config_path: Path | None) -> str:
     coil = ", coil ON" if info.has(wire.INFO_COIL_ON) else ""
     return (f"{info.name} (board {info.board}, fw {info.fw}, {report.address}): "
             f"battery {st['battery_mv'] / 1000:.2f} V, {st['temp_cdeg'] / 100:.1f} °C, "
-            f"{st['free_ram']:,} B free RAM, config {config}, key {report.key_check}, "
+            f"{st['free_ram']:,} B free RAM, config {config}, {firmware_text(report)}, "
+            f"key {report.key_check}, "
             f"{info.run_state}{coil}, up {_duration(info.uptime_s)}")
 
 

@@ -1,5 +1,5 @@
 """`slipless campaign`: a catalogue of every run in a folder of captures, queried,
-reduced together and archived."""
+reduced together, reported on one page and archived."""
 
 from __future__ import annotations
 
@@ -20,7 +20,7 @@ LIST_COLUMNS = ("capture", "board", "run", "label", "first_utc", "duration_s",
 
 def add_parser(sub: Any) -> None:
     p = sub.add_parser("campaign", help="a catalogue of every run in a folder of captures: "
-                       "scan, list, reduce pulses together, export an archive")
+                       "scan, list, reduce pulses together, report, export an archive")
     verbs = p.add_subparsers(dest="verb", required=True)
     s = verbs.add_parser("scan", help="catalogue new or changed captures (*.slcap, with the "
                          "*.mirror of the same name) into FOLDER/campaign.sqlite")
@@ -48,6 +48,14 @@ def add_parser(sub: Any) -> None:
                    help="output of `slipless predict --json` to compare d with")
     u.add_argument("--no-plots", action="store_true", help="tables only")
     u.add_argument("--quiet", action="store_true", help="no report on the console")
+    r = verbs.add_parser("report", help="one self-contained HTML page across the selected "
+                         "runs: the runs, d per run with its interval, and combined")
+    r.add_argument("folder", type=Path, metavar="FOLDER")
+    r.add_argument("--out", type=Path, required=True, metavar="FILE.html")
+    _where(r)
+    r.add_argument("--prediction", type=Path, metavar="FILE",
+                   help="output of `slipless predict --json`: the combined d against the model")
+    r.add_argument("--title", default="slipless campaign report")
 
 
 def _where(p: argparse.ArgumentParser) -> None:
@@ -56,7 +64,8 @@ def _where(p: argparse.ArgumentParser) -> None:
 
 
 def run_campaign(args: argparse.Namespace, console: Console) -> int:
-    return {"scan": _scan, "list": _list, "export": _export, "pulses": _pulses}[args.verb](
+    return {"scan": _scan, "list": _list, "export": _export, "pulses": _pulses,
+            "report": _report}[args.verb](
         args, console)
 
 
@@ -131,4 +140,19 @@ def _pulses(args: argparse.Namespace, console: Console) -> int:
                               highlight=False)
         console.print(f"written to {args.out}/: {', '.join(p.name for p in [*paths, which])}",
                       highlight=False)
+    return 0
+
+
+def _report(args: argparse.Namespace, console: Console) -> int:
+    from slipless.campaign import query
+    from slipless.campaign.report import collect, write
+    from slipless.cli.report import check_out
+
+    check_out(args.out)
+    rows = query(args.folder, args.where)
+    if not rows:
+        raise InputError(f"{args.folder}: no catalogued runs" + (
+            f" match {args.where!r}" if args.where else " (run `slipless campaign scan` first)"))
+    write(collect(args.folder, rows, args.where, args.prediction), args.out, args.title)
+    console.print(f"campaign report written to {args.out}", highlight=False)
     return 0

@@ -20,6 +20,7 @@ from slipless.board.flash import (
     build_plan,
     check_port,
     ensure_key,
+    firmware_hash,
     keep_key,
     probe,
     resolve_config,
@@ -36,6 +37,13 @@ def show_plan(plan: list[Item], console: Console, title: str) -> None:
     for it in plan:
         t.add_row(it.source, it.dest, f"{len(it.data):,}", it.sha256[:12])
     console.print(t)
+
+
+def firmware_line(plan: list[Item]) -> str:
+    """The firmware hash the board will report (SPEC 3.11), for `board status --firmware`."""
+    files, size, sha = firmware_hash(plan)
+    return (f"firmware hash {sha} ({files} code files, {size:,} bytes): the board reports it; "
+            "`slipless board status --firmware` compares")
 
 
 def show_cautions_once(console: Console) -> None:
@@ -91,6 +99,7 @@ def run_flash(args: argparse.Namespace, console: Console) -> int:
             show_plan(plan, console, f"flash plan for {profile['name']}{where} (dry run: "
                       "nothing copied)")
             show_budget(config, profile, console)
+            console.print(firmware_line(plan))
             return 0
         show_budget(config, profile, console)  # its warnings (a mirror shorter than the run...)
         board = Board(args.port)
@@ -111,6 +120,7 @@ def run_flash(args: argparse.Namespace, console: Console) -> int:
     key_file, kept = keep_key(config)
     show_plan(plan, console, f"flashed {profile['name']} on {args.port}: {len(plan)} files, "
               f"{total:,} bytes, all sha256 verified")
+    console.print(firmware_line(plan))
     console.print(f"board key: {key_file} (readable only by you; `slipless record` uses it)")
     if kept is not None:
         console.print(f"the key this laptop held before for board {config['board_id']} is kept "

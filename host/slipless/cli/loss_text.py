@@ -97,7 +97,8 @@ def print_report(accounts: Sequence[RunAccount], doc: dict[str, Any], console: C
                           "(status while idling; --json has its account)")
             continue
         print_table(console, _accounting_table(a))
-        extra = (f"side tallies: {a.corrupt} damaged on the link, {a.duplicates} duplicate copies, "
+        where = "on the link or in the files" if doc["file_damaged_segments"] else "on the link"
+        extra = (f"side tallies: {a.corrupt} damaged {where}, {a.duplicates} duplicate copies, "
                  f"{a.out_of_order} out of order")
         if a.mirror_copies:
             extra += f", {a.mirror_copies} mirror copies of frames already held"
@@ -112,11 +113,19 @@ def print_report(accounts: Sequence[RunAccount], doc: dict[str, Any], console: C
             print_table(console, _gap_table(a))
             if len(a.gaps) > MAX_GAP_ROWS:
                 console.print(f"... {len(a.gaps) - MAX_GAP_ROWS} more gaps (--json lists all)")
+        else:
+            console.print("no gaps: every frame arrived live")
         for line in _burst_lines(a.burst):
             console.print(line)
-        if a.angle:
+        if a.angle and a.angle["worst_deg"] is None:
+            console.print(f"loss against rotor angle ({a.angle['source']}): no frame missed, "
+                          "no worst sector")
+        elif a.angle:
             print_table(console, _angle_table(a.angle))
     console.print(f"missing {doc['frames_missing']} of {doc['frames_expected']} frames "
                   f"({100 * doc['loss_fraction']:.3f} %), {doc['samples_missing']} of "
                   f"{doc['samples_expected']} samples; {doc['corrupt_segments']} damaged segments "
-                  f"({doc['corrupt_bytes']} B) in the inputs")
+                  f"({doc['corrupt_bytes']} B) in the inputs"
+                  + (f", {doc['file_damaged_segments']} of them stretches of capture files "
+                     f"skipped ({doc['file_damaged_bytes']} B)" if doc["file_damaged_segments"]
+                     else ""))

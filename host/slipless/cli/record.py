@@ -46,8 +46,9 @@ def add_parsers(sub: Any) -> None:
     r.add_argument("--label", default="", help="run label sent with START (at most 32 bytes); "
                    "kept in the capture")
     r.add_argument("--operator", default="", metavar="NAME", help="who ran it (kept in the capture)")
-    r.add_argument("--rig", type=Path, metavar="FILE.json",
-                   help="the rig's `slipless predict --json` output, kept in the capture")
+    r.add_argument("--prediction", "--rig", dest="rig", type=Path, metavar="FILE.json",
+                   help="the rig's `slipless predict --json` output (strict JSON), kept in the "
+                        "capture")
     r.add_argument("--amplifier", default="", metavar="TEXT",
                    help="the amplifier's settings as set on the bench (kept in the capture)")
     r.add_argument("--ping-every", type=float, default=1.0, metavar="S",
@@ -237,7 +238,8 @@ async def _record(args: argparse.Namespace, console: Console, signer: Any = None
         raise InputError(f"{args.out}: cannot write ({exc.strerror})") from exc
     opts = RecordOptions(duration_s=args.duration, label=args.label,
                          ping_every_s=args.ping_every, start=not args.no_start,
-                         signer=signer)
+                         signer=signer, ask_board=True, on_note=lambda text: console.print(
+                             f"note: {text}", markup=False, highlight=False))
     started = time.monotonic()
     state = watch_state(args)
     in_terminal = state is not None and args.watch_terminal  # the view replaces the status line
@@ -285,22 +287,33 @@ async def _record(args: argparse.Namespace, console: Console, signer: Any = None
 
 
 def read_rig(path: Path | None) -> dict[str, Any] | None:
-    """The --rig file: `slipless predict --json` output, small enough for the header."""
+    """The --prediction (--rig) file: `slipless predict --json` output, strict JSON (no
+    NaN or Infinity: predict writes null for those), small enough for the header."""
     if path is None:
         return None
+    import json
+
     from slipless.io.json_text import parse_json
 
     try:
         text = path.read_text(encoding="utf-8")
     except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"--rig {path}: cannot read ({getattr(exc, 'strerror', None) or exc})") \
+        raise InputError(f"--prediction {path}: cannot read ({getattr(exc, 'strerror', None) or exc})") \
             from None
     doc = parse_json(text, path)
+    try:
+        json.loads(text, parse_constant=_not_strict)
+    except ValueError as exc:
+        raise InputError(f"--prediction {path}: not strict JSON: {exc}") from None
     if not isinstance(doc, dict) or "results" not in doc:
-        raise InputError(f"--rig {path}: not the output of `slipless predict --json`")
+        raise InputError(f"--prediction {path}: not the output of `slipless predict --json`")
     if len(text.encode()) > 32_000:
-        raise InputError(f"--rig {path}: over 32 kB: the capture's header holds at most 64 kB")
+        raise InputError(f"--prediction {path}: over 32 kB: the capture's header holds at most 64 kB")
     return doc
+
+
+def _not_strict(name: str) -> Any:
+    raise ValueError(f"{name} is not a JSON number (slipless predict --json writes null)")
 
 
 def watch_state(args: argparse.Namespace) -> Any:

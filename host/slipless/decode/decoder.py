@@ -67,7 +67,7 @@ TICK_MAX = 1 << 62
 _MIN_SAMPLES_BODY = _SAMPLES_HEAD.size + 1  # a SAMPLES body holds at least one sample byte
 # Replies a board still sends after END (SPEC 3.8): at seqs at or above END's frame count
 # they answer commands and are not frames of the run.
-REPLY_KINDS = (wire.STATUS, wire.SYNC, wire.ACK, wire.ERROR, wire.INFO)
+REPLY_KINDS = (wire.STATUS, wire.SYNC, wire.ACK, wire.ERROR, wire.INFO, wire.FIRMWARE)
 # Frames never received handed to the sink one row each, per run: a CRC-valid frame with a
 # seq near 2**32 would otherwise open a gap of billions (the runs table still counts them all).
 MAX_UNSEEN_ROWS = 1_000_000
@@ -263,6 +263,17 @@ class Sink(Protocol):
     def frame(self, run: RunState, seq: int, kind: int, fate: str, offset: int, origin: str,
               arrival: Arrival) -> None: ...
     def timing(self, run: RunState, seq: int, kind: int, tick: int, arrival: Arrival) -> None: ...
+    # A sink may also define received_frames(run, seq0, offsets, origin, arrival):
+    # SAMPLES frames seq0, seq0 + 1, ... arrived in order, each "received", at these
+    # offsets; the decoder then makes that one call in place of their frame() calls.
+
+
+def received_one_by_one(sink: Any, run: RunState, seq0: int, offsets: np.ndarray, origin: str,
+                        arrival: Arrival) -> None:
+    """received_frames for a sink that only has frame()."""
+    frame = sink.frame
+    for q, offset in enumerate(offsets.tolist()):
+        frame(run, seq0 + q, wire.SAMPLES, "received", offset, origin, arrival)
 
 
 def expand_frames(info: StreamInfo, seqs: np.ndarray, ticks: np.ndarray,
@@ -359,6 +370,15 @@ class Tee(NullSink):
         for s in self.sinks:
             s.timing(run, seq, kind, tick, arrival)
 
+    def received_frames(self, run: RunState, seq0: int, offsets: np.ndarray, origin: str,
+                        arrival: Arrival) -> None:
+        for s in self.sinks:
+            bulk = getattr(s, "received_frames", None)
+            if bulk is not None:
+                bulk(run, seq0, offsets, origin, arrival)
+            elif getattr(type(s), "frame", None) is not NullSink.frame:
+                received_one_by_one(s, run, seq0, offsets, origin, arrival)
+
 
 @dataclass
 class Counters:
@@ -370,6 +390,8 @@ class Counters:
     corrupt_bytes: int = 0
     overlong: int = 0
     skipped_bytes: int = 0
+    file_damaged: int = 0  # stretches of capture files the reader stepped over (damaged segments)
+    file_damaged_bytes: int = 0
     unknown_kind: int = 0
     bad_version: int = 0
     versions_seen: set[int] = field(default_factory=set)
@@ -447,6 +469,7 @@ class Decoder:
                                or getattr(type(self.sink), "samples", None) is not NullSink.samples)
         self._wants_timing = getattr(type(self.sink), "timing", None) is not NullSink.timing
         self._wants_frames = getattr(type(self.sink), "frame", None) is not NullSink.frame
+        self._received_frames = getattr(self.sink, "received_frames", None)
         self._pending: list[tuple[RunState, int, int, int]] = []  # stretches: run, first, end, shift
         self._block: _Block | None = None
         self._sizes: dict[tuple[int, int], np.ndarray] = {}  # per run: item size by stream id
@@ -472,6 +495,15 @@ class Decoder:
         self._deframers = {0: self.deframer}
 
     # ---- input ------------------------------------------------------------
+    def skip_damaged(self, nbytes: int) -> None:
+        """The input's reader stepped over nbytes it could not read (a damaged
+        stretch of a capture file): one damaged segment (SPEC 6's D), and no frame
+        is glued across it on any link of the input."""
+        first, *rest = self._deframers.values()
+        first.skip_damaged(nbytes)
+        for d in rest:
+            d.cut()
+
     def reset_source(self, source: int) -> None:
         """A link restarted: bytes before and after must not be glued together."""
         d = self._deframers.pop(source, None)
@@ -608,13 +640,16 @@ class Decoder:
         shift = wire.unwrap_tick(int(blk.tick32[i]), run.ref_tick) - int(blk.tick_sum[i])
         last = seq0 + k - i - 1
         arrival = self.arrival
-        if self._wants_frames or (arrival.mono_ns >= 0 and self._wants_timing):
+        timed = arrival.mono_ns >= 0 and self._wants_timing
+        if timed or (self._wants_frames and self._received_frames is None):
             self._stretch_calls(run, i, k, seq0, shift, damage)
         else:
             run.high_seq = last
             run.received += k - i
             self._keep_refs(run, i, seq0, last, shift)
             run.ref_seq, run.ref_tick = last, shift + int(blk.tick_sum[k - 1])
+            if self._received_frames is not None:  # after the run's state, as frame() is
+                self._received_frames(run, seq0, blk.frames.offsets[i:k], arrival.origin, arrival)
         self._pending.append((run, i, k, shift))
         return k
 
@@ -771,6 +806,8 @@ class Decoder:
             c.corrupt_bytes += d.corrupt_bytes
             c.overlong += d.overlong
             c.skipped_bytes += d.skipped
+            c.file_damaged += getattr(d, "file_damaged", 0)  # (tests put wire.Deframer here)
+            c.file_damaged_bytes += getattr(d, "file_damaged_bytes", 0)
 
     # ---- per frame ----------------------------------------------------------
     def _frame(self, body: bytes, offset: int) -> None:

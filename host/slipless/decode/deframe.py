@@ -9,6 +9,21 @@ right cost for a notification at a time. feed_block() takes a large chunk
 found by numpy, every segment of the chunk COBS-decoded by one C call (see
 _decode_runs for why that is exact), one zlib call per frame. Tests feed the
 deframers the same damaged streams and require the same frames and counters.
+
+What counts as damage, the one rule every summary and note follows:
+
+- damaged segments = corrupt + overlong segments (SPEC section 4, rules 2-3),
+  the ones after an input's first delimiter, plus the stretches of the input
+  its reader stepped over (a damaged stretch of a capture file: skip_damaged),
+  each stretch one segment. All of them are `damaged`, so all count in SPEC
+  section 6's D: frames lost to a damaged stretch are corrupt frames, as
+  frames lost to a corrupt segment are. file_damaged counts the stretches apart.
+- damaged bytes = the bytes of those segments and stretches (corrupt_bytes +
+  file_damaged_bytes), and, not as a segment, the bytes of a frame an input's
+  end or a stretch cut off (SPEC 4 rule 5).
+- not damage: bytes before an input's first delimiter (`skipped`, SPEC 4
+  rule 4: the reader joined inside a frame), and an unfinished last record of
+  a capture (the capture reader counts those as truncated).
 """
 
 from __future__ import annotations
@@ -109,13 +124,42 @@ class FastDeframer:
         self.corrupt_bytes = 0
         self.overlong = 0
         self.skipped = 0
+        self.file_damaged = 0  # stretches the input's reader stepped over (skip_damaged)
+        self.file_damaged_bytes = 0
+        self._cut_open = False  # cut(): the next segment is the rest of a frame cut off
         self._first_damaged = 0  # feed_block: damaged count after its first segment's frame
         self._is_zero = np.empty(0, dtype=bool)  # feed_block's scratch, as long as its longest chunk
 
     @property
     def damaged(self) -> int:
-        """Segments rejected after the first delimiter (corrupt or overlong)."""
-        return self.corrupt + self.overlong
+        """Segments rejected after the first delimiter (corrupt or overlong), and
+        the stretches the input's reader stepped over (each one segment)."""
+        return self.corrupt + self.overlong + self.file_damaged
+
+    def skip_damaged(self, nbytes: int) -> None:
+        """The input's reader stepped over nbytes it could not read (a damaged
+        stretch of a capture file) between the bytes fed so far and the next:
+        one damaged segment of nbytes. The frame in progress ends there (cut)."""
+        self.cut()
+        self.file_damaged += 1
+        self.file_damaged_bytes += nbytes
+
+    def cut(self) -> None:
+        """Bytes went missing here: never glue what came before to what follows.
+        The held tail (a frame's start) is counted as close() counts it, and the
+        bytes up to the next delimiter (that frame's rest) as damaged bytes too,
+        not as another segment."""
+        n = len(self._tail) + self._tail_dropped
+        if n:
+            if self._synced:
+                self.corrupt_bytes += n
+            else:
+                self.skipped += n
+        self._pos += n
+        self._tail = b""
+        self._tail_overlong = False
+        self._tail_dropped = 0
+        self._cut_open = self._synced
 
     def feed(self, data: bytes) -> list[tuple[bytes, int, int]]:
         if not data:
@@ -129,9 +173,11 @@ class FastDeframer:
         for seg in parts:
             n = len(seg)
             extra = 0
+            cut = False
             if first:
                 extra = self._tail_dropped
                 overlong = self._tail_overlong or n > wire.MAX_ENCODED
+                cut, self._cut_open = self._cut_open, False
             else:
                 overlong = n > wire.MAX_ENCODED
             first = False
@@ -142,18 +188,18 @@ class FastDeframer:
             if n == 0:
                 continue
             if overlong:
-                self._reject(synced, n + extra, overlong=True)
+                self._reject(synced, n + extra, overlong=True, cut=cut)
                 continue
             try:
                 dec = _cobs_decode(seg)
             except _CobsError:
-                self._reject(synced, n)
+                self._reject(synced, n, cut=cut)
                 continue
             if len(dec) < _MIN_DECODED or zlib.crc32(dec) != _CRC_RESIDUE:
-                self._reject(synced, n)
+                self._reject(synced, n, cut=cut)
                 continue
             self.frames += 1
-            out.append((dec[: -wire.CRC_SIZE], start, self.corrupt + self.overlong))
+            out.append((dec[: -wire.CRC_SIZE], start, self.damaged))
         if parts:
             self._tail_overlong = False
             self._tail_dropped = 0
@@ -214,7 +260,7 @@ class FastDeframer:
         self.overlong += int(overlong.sum())
         bad |= overlong
         self.corrupt_bytes += int((sizes[bad] + 1).sum())
-        damaged = self.corrupt + self.overlong - int(bad.sum()) + np.cumsum(bad)
+        damaged = self.damaged - int(bad.sum()) + np.cumsum(bad)
         frames = cand[good]
         self.frames += len(frames)
         block = FrameBlock(decoded, dec_at[good], sizes[frames] - 1 - wire.CRC_SIZE,
@@ -232,21 +278,22 @@ class FastDeframer:
         extra = self._tail_dropped
         synced = self._synced
         self._synced = True
+        cut, self._cut_open = self._cut_open, False
         if n == 0:
             return None
         if self._tail_overlong or n > wire.MAX_ENCODED:
-            self._reject(synced, n + extra, overlong=True)
+            self._reject(synced, n + extra, overlong=True, cut=cut)
             return None
         try:
             dec = _cobs_decode(seg)
         except _CobsError:
-            self._reject(synced, n)
+            self._reject(synced, n, cut=cut)
             return None
         if len(dec) < _MIN_DECODED or zlib.crc32(dec) != _CRC_RESIDUE:
-            self._reject(synced, n)
+            self._reject(synced, n, cut=cut)
             return None
         self.frames += 1
-        self._first_damaged = self.corrupt + self.overlong
+        self._first_damaged = self.damaged
         return dec  # type: ignore[no-any-return]
 
     @staticmethod
@@ -295,10 +342,13 @@ class FastDeframer:
                     used += len(dec)
         return pieces[0] if len(pieces) == 1 else b"".join(pieces)
 
-    def _reject(self, synced: bool, n: int, overlong: bool = False) -> None:
+    def _reject(self, synced: bool, n: int, overlong: bool = False, cut: bool = False) -> None:
         # Before the first delimiter a failing segment is the tail of a frame we
-        # joined in the middle of, not damage.
-        if not synced:
+        # joined in the middle of, not damage. Right after a cut it is the rest of
+        # the frame the cut ended: its bytes are damaged, the cut is the segment.
+        if cut:
+            self.corrupt_bytes += n + 1
+        elif not synced:
             self.skipped += n + 1
         elif overlong:
             self.overlong += 1

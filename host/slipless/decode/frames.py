@@ -72,10 +72,16 @@ ConfigSha = ExprAdapter(Bytes(wire.CONFIG_SHA_SIZE), lambda obj, _ctx: bytes(obj
 Info = Struct(*fields(wire.INFO_FIXED, wire.INFO_FIELDS), "config_sha" / ConfigSha,
               "name" / Text, "profile" / Text, Terminated)
 
+# The firmware hash (SPEC 3.11) reads as hex text too.
+FwSha = ExprAdapter(Bytes(wire.FW_SHA_SIZE), lambda obj, _ctx: bytes(obj).hex(),
+                    lambda obj, _ctx: bytes.fromhex(obj))
+Firmware = Struct(*fields(wire.FIRMWARE_FIXED, wire.FIRMWARE_FIELDS), "fw_sha" / FwSha,
+                  Terminated)
+
 BODIES: dict[int, Construct] = {
     wire.DESCRIPTOR: Descriptor, wire.SAMPLES: Samples, wire.EVENTS: Events,
     wire.STATUS: Status, wire.SYNC: Sync, wire.ACK: Ack, wire.ERROR: Error, wire.END: End,
-    wire.COMMAND: Command, wire.INFO: Info,
+    wire.COMMAND: Command, wire.INFO: Info, wire.FIRMWARE: Firmware,
 }
 
 

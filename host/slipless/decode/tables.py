@@ -48,10 +48,16 @@ _RUN = (("board", INT), ("run", INT))
 _TIME = (("tick_us", INT, "us"), Col("board_time_s", FLOAT, "s", encoding="split"))
 
 SPECS: dict[str, Spec] = {s.name: s for s in (
-    spec("samples", [*_RUN, ("stream", INT), ("name", STR), ("seq", INT), *_TIME,
-                     ("raw", INT, "count"), Col("value", FLOAT, "see unit", encoding="dictionary"),
-                     ("unit", STR),
-                     ("raw_float", FLOAT)]),
+    # samples: the columns every sample has are required in Parquet (board_time_s is
+    # missing under a descriptor with tick_hz 0); the values keep no page statistics
+    # (readers filter on stream, seq and times; min/max per page costs time)
+    spec("samples", [*_RUN, Col("stream", INT, encoding="dictionary", required=True),
+                     Col("name", STR, required=True),
+                     Col("seq", INT, required=True), Col("tick_us", INT, "us", required=True),
+                     _TIME[1],
+                     Col("raw", INT, "count", statistics=False),
+                     Col("value", FLOAT, "see unit", encoding="dictionary", statistics=False),
+                     Col("unit", STR, required=True), Col("raw_float", FLOAT, statistics=False)]),
     spec("events", [*_RUN, ("seq", INT), *_TIME, ("event", STR), ("code", INT),
                     ("value", INT)]),
     spec("status", [*_RUN, ("seq", INT), *_TIME, ("battery_mV", INT, "mV"),
@@ -136,19 +142,60 @@ class _Names:
 
 
 class _FrameRows(_Rows):
-    """The frames table: kind, fate and origin as codes into their few texts."""
+    """The frames table: kind, fate and origin as codes into their few texts.
+    Single rows (tuples, appended by TableSink.frame) and stretches of frames
+    received in order (received_frames) are kept in their order."""
 
     def __init__(self, writer: TableWriter) -> None:
         super().__init__(writer)
         self._fates = _Names()
         self._origins = _Names(None)
+        # the rows before the last stretch: tuples, or (run, seq0, offsets, origin, source, wall)
+        self._parts: list[list[tuple[Any, ...]] | tuple[Any, ...]] = []
+        self._held = 0  # rows in _parts
+
+    def stretch(self, run: RunState, seq0: int, offsets: np.ndarray, origin: str,
+                arrival: Arrival) -> None:
+        if self.rows:
+            self._parts.append(list(self.rows))
+            self._held += len(self.rows)
+            self.rows.clear()  # the same list: TableSink.frame holds it
+        self._parts.append((run, seq0, offsets, origin or None, arrival.source,
+                            arrival.wall_ns if arrival.wall_ns >= 0 else None))
+        self._held += len(offsets)
+        if self._held >= ROWS_PER_WRITE:
+            self.flush()
+
+    def flush(self) -> None:
+        if self.rows or self._parts:
+            self.writer.write(self.columns())
+            self.rows.clear()
+            self._parts, self._held = [], 0
 
     def columns(self) -> list[Any]:
-        board, run, seq, kind, fate, origin, source, offset, wall = zip(*self.rows)
+        parts = [*self._parts, self.rows] if self.rows else self._parts
+        cols: list[list[Any]] = [[] for _ in range(9)]
+        board, run, seq, kind, fate, origin, source, offset, wall = cols
+        for part in parts:
+            if isinstance(part, list):
+                for col, values in zip(cols, zip(*part)):
+                    col.extend(values)
+                continue
+            state, seq0, offsets, how, src, at = part
+            n = len(offsets)
+            board.extend([state.board] * n)
+            run.extend([state.run] * n)
+            seq.extend(range(seq0, seq0 + n))
+            kind.extend([wire.SAMPLES] * n)
+            fate.extend(["received"] * n)
+            origin.extend([how] * n)
+            source.extend([src] * n)
+            offset.extend(offsets.tolist())
+            wall.extend([at] * n)
         kinds = np.array(kind, dtype=np.int64)
-        return [list(board), list(run), list(seq), Coded(kinds, _KIND_TEXT, "kind"),
+        return [board, run, seq, Coded(kinds, _KIND_TEXT, "kind"),
                 self._fates.coded(fate, "fate"), self._origins.coded(origin, "origin"),
-                list(source), list(offset), list(wall), list(wall)]
+                source, offset, wall, wall]
 
 
 class _TimingRows(_Rows):
@@ -352,7 +399,10 @@ class TableSink:
         self._rows = {name: kinds.get(name, _Rows)(t) for name, t in self._t.items()
                       if name != "samples"}
         self._samples = _Samples(self._t["samples"])
-        self._frame_rows = self._rows["frames"].rows
+        frames = self._rows["frames"]
+        assert isinstance(frames, _FrameRows)
+        self._frames = frames
+        self._frame_rows = frames.rows
         self._timing_rows = self._rows["timing"].rows
 
     def _part_metadata(self, key: tuple[Any, ...]) -> dict[str, str]:
@@ -412,7 +462,11 @@ class TableSink:
                          offset if offset >= 0 else None,
                          arrival.wall_ns if arrival.wall_ns >= 0 else None))
         if len(rows) >= ROWS_PER_WRITE:
-            self._rows["frames"].flush()
+            self._frames.flush()
+
+    def received_frames(self, run: RunState, seq0: int, offsets: np.ndarray, origin: str,
+                        arrival: Arrival) -> None:
+        self._frames.stretch(run, seq0, offsets, origin, arrival)
 
     def timing(self, run: RunState, seq: int, kind: int, tick: int, arrival: Arrival) -> None:
         rows = self._timing_rows

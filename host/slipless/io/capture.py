@@ -18,7 +18,7 @@ import os
 import struct
 import time
 import zlib
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -67,6 +67,17 @@ class Record:
 
 @dataclass
 class ReadStats:
+    """What the reader met besides good records.
+
+    A damaged stretch is a run of bytes between two good records (or before
+    the end) that is no good record: the reader steps over it, byte by byte to
+    the next sync word that starts one. Each stretch counts once, with its
+    bytes; the decoder counts it as one damaged segment (the frames it held are
+    lost to damage, SPEC section 6), beside the segments the deframer rejects.
+    An unfinished last record (the file was cut, or the recorder stopped) is
+    not damage: it is counted apart, as truncated bytes.
+    """
+
     records: int = 0
     damaged_bytes: int = 0  # bytes skipped to find the next good record
     damaged_stretches: int = 0
@@ -174,12 +185,18 @@ def read_header(f: BinaryIO) -> dict[str, Any]:
 
 @dataclass
 class CaptureReader:
-    """Iterate the records of a capture, skipping damage, stopping at a cut."""
+    """Iterate the records of a capture, skipping damage, stopping at a cut.
+
+    on_damage(offset, nbytes), when set, is told of each damaged stretch as it
+    ends: before the record after it is handed out (or at the end), so a
+    reader of the records learns where in their order the damage sat.
+    """
 
     f: BinaryIO
     chunk: int = 1 << 20
     stats: ReadStats = field(default_factory=ReadStats)
     meta: dict[str, Any] = field(default_factory=dict)
+    on_damage: Callable[[int, int], None] | None = None
 
     def __post_init__(self) -> None:
         self.meta = read_header(self.f)
@@ -190,7 +207,7 @@ class CaptureReader:
         pos = 0
         eof = False
         head = _REC_HEAD.size
-        damaged = False  # inside a damaged stretch
+        stretch: list[int] = []  # [file offset, bytes] of the damaged stretch we are in
         while True:
             if len(buf) - pos < head + MAX_PAYLOAD + 4 and not eof:
                 parts = [buf[pos:]]
@@ -206,6 +223,7 @@ class CaptureReader:
                 buf = b"".join(parts)
                 pos = 0
             if len(buf) - pos < head + 4:
+                self._end_stretch(stretch)
                 self.stats.truncated_bytes += len(buf) - pos
                 return
             sync, type_, source, n, mono, wall = _REC_HEAD.unpack_from(buf, pos)
@@ -213,22 +231,31 @@ class CaptureReader:
             if sync == SYNC and n <= MAX_PAYLOAD and end + 4 <= len(buf):
                 (crc,) = struct.unpack_from("<I", buf, end)
                 if zlib.crc32(buf[pos:end]) == crc:
-                    damaged = False
+                    self._end_stretch(stretch)
                     self.stats.records += 1
                     yield Record(type_, source, mono, wall, buf[pos + head : end], base + pos)
                     pos = end + 4
                     continue
             elif sync == SYNC and n <= MAX_PAYLOAD and eof:
+                self._end_stretch(stretch)
                 self.stats.truncated_bytes += len(buf) - pos  # cut inside the last record
                 return
             # Damage: look for the next sync word that starts a good record.
             nxt = buf.find(b"\xa5\x5a", pos + 1)
             skip_to = nxt if nxt >= 0 else len(buf) - 1
             self.stats.damaged_bytes += skip_to - pos
-            if not damaged:
+            if not stretch:
                 self.stats.damaged_stretches += 1
-                damaged = True
+                stretch += [base + pos, 0]
+            stretch[1] += skip_to - pos
             pos = skip_to
+
+    def _end_stretch(self, stretch: list[int]) -> None:
+        """A damaged stretch ended (a good record, a cut or the end follows): tell on_damage."""
+        if stretch:
+            if self.on_damage is not None:
+                self.on_damage(stretch[0], stretch[1])
+            stretch.clear()
 
 
 def open_capture(path: Path) -> tuple[BinaryIO, CaptureReader]:

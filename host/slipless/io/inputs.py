@@ -82,14 +82,16 @@ def read_chunks(path: Path, on_progress: Callable[[int], None] | None = None) ->
         raise InputError(f"{path}: cannot read ({exc.strerror})") from exc
 
 
-def pieces(src: Source, on_progress: Callable[[int], None] | None = None) -> Iterator[Piece]:
-    """The input as decoder feed pieces; (None, arrival) marks a fresh link."""
+def pieces(src: Source, on_progress: Callable[[int], None] | None = None,
+           on_damage: Callable[[int], None] | None = None) -> Iterator[Piece]:
+    """The input as decoder feed pieces; (None, arrival) marks a fresh link.
+    on_damage(nbytes): a capture's damaged stretch, told before the piece after it."""
     if src.kind in ("stream", "mirror"):
         arrival = Arrival(origin=src.kind)
         for chunk in read_chunks(src.path, on_progress):
             yield chunk, arrival
     elif src.kind == "capture":
-        yield from _capture_pieces(src, on_progress)
+        yield from _capture_pieces(src, on_progress, on_damage)
     elif src.kind == "btsnoop":
         from slipless.io.btsnoop import BtsnoopReport, btsnoop_pieces
 
@@ -131,8 +133,11 @@ def open_capture_input(path: Path) -> tuple[BinaryIO, capture.CaptureReader]:
         raise InputError(f"{path}: cannot read ({exc.strerror})") from exc
 
 
-def _capture_pieces(src: Source, on_progress: Callable[[int], None] | None) -> Iterator[Piece]:
+def _capture_pieces(src: Source, on_progress: Callable[[int], None] | None,
+                    on_damage: Callable[[int], None] | None = None) -> Iterator[Piece]:
     f, reader = open_capture_input(src.path)
+    if on_damage is not None:
+        reader.on_damage = lambda _offset, nbytes: on_damage(nbytes)
     with f:
         last = 0
         for rec in reader:
@@ -182,7 +187,7 @@ def feed_all(dec: Decoder, sources: Sequence[Source], progress: Progress | None 
             if on_source is not None:
                 on_source(i, src)
             dec.new_input()
-            for data, where in pieces(src, advance):
+            for data, where in pieces(src, advance, dec.skip_damaged):
                 if data is None:
                     dec.reset_source(where.source)
                     continue

@@ -56,6 +56,10 @@ class Col:
     # Parquet encoding for a number column: "dictionary" (few distinct values, such as
     # scaled 16-bit samples), "split" (BYTE_STREAM_SPLIT: smooth floats such as times)
     encoding: str = ""
+    # never missing: Parquet writes it as a required field (no definition levels)
+    required: bool = False
+    # Parquet keeps min/max per page (what readers filter on: times, seqs)
+    statistics: bool = True
 
 
 @dataclass(frozen=True)

@@ -84,7 +84,7 @@ class _Dictionaries:
             where: dict[str, int] = {}
             index = np.array([-1 if v is None else where.setdefault(str(v), len(where))
                               for v in np.asarray(col.values).tolist()], dtype=np.int32)
-            got = (pa.array(list(where), pa.string()), index)
+            got = (_strings(pa, list(where)), index)
             if col.key is not None:
                 with self._lock:
                     if len(self._kept) >= _MAX_DICTIONARIES:
@@ -106,7 +106,7 @@ class _Scratch:
         self._kept: dict[tuple[str, int], np.ndarray] = {}
         self._used: dict[str, int] = {}
         self._rows = self._at = 0
-        self.nulls: dict[tuple[int, str], Any] = {}  # all-null Arrow arrays (immutable)
+        self.nulls: dict[str, Any] = {}  # all-null Arrow arrays (immutable), by type
 
     def start(self, rows: int) -> None:
         self._rows, self._at = rows, 0
@@ -124,14 +124,23 @@ class _Scratch:
             buf = self._kept[(dt.str, i)] = np.empty(need, dtype=dt)
         return buf[self._at : self._at + n]
 
+    def zero_indices(self, pa: Any, n: int) -> Any:
+        """n dictionary indices 0 (int32), sliced from one array never written."""
+        got = self.nulls.get("zeros")
+        if got is None or len(got) < n:
+            got = self.nulls["zeros"] = _numbers(pa, pa.int32(),
+                                                 np.zeros(max(n, ROW_GROUP_ROWS), np.int32))
+        return got.slice(0, n)
+
     def null(self, pa: Any, n: int, typ: Any) -> Any:
-        key = (n, str(typ))
+        """n nulls of typ: a slice of one long array (slices share its memory)."""
+        key = str(typ)
         got = self.nulls.get(key)
-        if got is None:
+        if got is None or len(got) < n:
             if len(self.nulls) >= 8:
                 self.nulls.clear()
-            got = self.nulls[key] = pa.nulls(n, typ)
-        return got
+            got = self.nulls[key] = pa.nulls(max(n, ROW_GROUP_ROWS), typ)
+        return got.slice(0, n)
 
 
 def _expanded(col: Stepped, made: dict[int, np.ndarray], scratch: _Scratch) -> np.ndarray:
@@ -147,8 +156,8 @@ def _text(pa: Any, col: Column, n: int, c: Col, dicts: _Dictionaries, scratch: _
     if isinstance(col, Const):
         if col.value is None:
             return scratch.null(pa, n, typ)
-        arr = pa.DictionaryArray.from_arrays(pa.array(np.zeros(n, np.int32)),
-                                             pa.array([str(col.value)], pa.string()))
+        arr = pa.DictionaryArray.from_arrays(scratch.zero_indices(pa, n),
+                                             _strings(pa, [str(col.value)]))
         return arr if c.repeats else arr.cast(pa.string())
     coded: Coded | None = None
     counts = None
@@ -158,21 +167,57 @@ def _text(pa: Any, col: Column, n: int, c: Col, dicts: _Dictionaries, scratch: _
         coded, counts = col.values, col.counts
     if coded is not None:
         dictionary, index = dicts.get(pa, coded)
+        codes = coded.codes
+        if len(codes) and not (codes != codes[0]).any():  # one text throughout (a stream's name)
+            at = int(index[codes[0]])
+            if at >= 0:
+                arr = pa.DictionaryArray.from_arrays(scratch.zero_indices(pa, n), dictionary[at:at + 1])
+                return arr if c.repeats else arr.cast(pa.string())
         if counts is not None:
-            idx = repeat_frames(index[coded.codes], counts, scratch.take(np.int32, n))
+            idx = repeat_frames(np.take(index, coded.codes, mode="clip"), counts,
+                               scratch.take(np.int32, n))
         else:
-            idx = np.take(index, coded.codes, out=scratch.take(np.int32, n))
+            idx = np.take(index, coded.codes, out=scratch.take(np.int32, n), mode="clip")
         missing = idx < 0
         if missing.any():
             np.maximum(idx, 0, out=idx)
-        arr = pa.DictionaryArray.from_arrays(
-            pa.array(idx, pa.int32(), mask=missing if missing.any() else None), dictionary)
+        indices = _numbers(pa, pa.int32(), idx, missing)
+        arr = pa.DictionaryArray.from_arrays(indices, dictionary)
         return arr if c.repeats else arr.cast(pa.string())
     vals = plain_values(col, n, STR)
     if isinstance(vals, np.ndarray):
         vals = vals.tolist()
-    arr = pa.array([None if v is None else str(v) for v in vals], pa.string())
+    arr = _strings(pa, [None if v is None else str(v) for v in vals])
     return arr.dictionary_encode() if c.repeats else arr
+
+
+# Arrays are made from their buffers, not by pa.array: that checks and copies every
+# value (a millisecond a row group a column) and imports pandas when it is installed
+# (0.3 s a process).
+def _validity(pa: Any, missing: np.ndarray | None) -> Any:
+    """Arrow's validity bitmap (bit set: a value) for a mask of missing values."""
+    if missing is None or not missing.any():
+        return None
+    return pa.py_buffer(np.packbits(~missing, bitorder="little"))
+
+
+def _numbers(pa: Any, typ: Any, vals: np.ndarray, missing: np.ndarray | None = None) -> Any:
+    """A fixed-width Arrow array over the values' own memory (missing: nulls)."""
+    dtype = {pa.int32(): np.int32, pa.float64(): np.float64}.get(typ, np.int64)
+    vals = np.ascontiguousarray(vals, dtype=dtype)
+    return pa.Array.from_buffers(typ, len(vals), [_validity(pa, missing), pa.py_buffer(vals)])
+
+
+def _strings(pa: Any, texts: Sequence[str | None]) -> Any:
+    """A string array of texts (None: null)."""
+    data = [b"" if t is None else t.encode("utf-8", "replace") for t in texts]
+    offsets = np.zeros(len(data) + 1, dtype=np.int64)
+    np.cumsum([len(d) for d in data], out=offsets[1:])
+    if offsets[-1] >= 2**31:  # a row group's texts beyond 32-bit offsets (never ours)
+        raise ValueError("text column too large for one row group")
+    missing = np.fromiter((t is None for t in texts), bool, len(texts))
+    return pa.Array.from_buffers(pa.string(), len(data), [
+        _validity(pa, missing), pa.py_buffer(offsets.astype(np.int32)), pa.py_buffer(b"".join(data))])
 
 
 def _arrow(pa: Any, col: Column, n: int, c: Col, dicts: _Dictionaries,
@@ -185,36 +230,46 @@ def _arrow(pa: Any, col: Column, n: int, c: Col, dicts: _Dictionaries,
         return scratch.null(pa, n, typ)
     if kind == STR:
         return _text(pa, col, n, c, dicts, scratch)
+    whole = False  # numbers known to hold no NaN (no missing values to look for)
     if isinstance(col, Stepped):
         vals: Any = _expanded(col, ticks, scratch)
     elif isinstance(col, TickSeconds) and col.tick_hz:
         tick = col.tick
         made = _expanded(tick, ticks, scratch) if isinstance(tick, Stepped) else ticks_of(tick)
         vals = np.divide(made, col.tick_hz, out=scratch.take(np.float64, n))
+        whole = True
     elif isinstance(col, PerFrame):
         per = frame_values(col.values)
         vals = repeat_frames(per, col.counts, None if per.dtype.kind == "O" else
                              scratch.take(per.dtype, n))
     elif isinstance(col, Coded) and np.asarray(col.values).dtype.kind in "iuf":
         table = np.asarray(col.values)
-        vals = np.take(table, col.codes, out=scratch.take(table.dtype, n))
+        # codes are in range by construction: "clip" skips np.take's bounds check,
+        # which costs ten times the gather itself for int32 codes
+        vals = np.take(table, col.codes, out=scratch.take(table.dtype, n), mode="clip")
+        whole = table.dtype.kind != "f" or not np.isnan(table).any()
     else:
         vals = plain_values(col, n, kind)
     if isinstance(vals, np.ndarray) and vals.dtype.kind != "O":
         if kind == FLOAT:
             vals = vals.astype(np.float64, copy=False)
+            if whole:
+                return pa.Array.from_buffers(pa.float64(), len(vals), [None, pa.py_buffer(vals)])
             nan = np.isnan(vals, out=scratch.take(np.bool_, n)) if vals.size == n else np.isnan(vals)
-            return pa.array(vals, type=typ, mask=nan if nan.any() else None)
+            return _numbers(pa, typ, vals, nan)
         if vals.dtype.kind == "f":  # int column from floats: NaN is missing
             nan = np.isnan(vals)
-            return pa.array(np.where(nan, 0, vals).astype(np.int64), type=typ,
-                            mask=nan if nan.any() else None)
-        return pa.array(vals.astype(np.int64, copy=False), type=typ)
+            return _numbers(pa, typ, np.where(nan, 0, vals).astype(np.int64), nan)
+        return _numbers(pa, typ, vals)
     if isinstance(vals, np.ndarray):
         vals = vals.tolist()
     if kind == FLOAT:
-        return pa.array([None if v is None or v != v else float(v) for v in vals], type=typ)
-    return pa.array(vals, type=typ)
+        missing = np.fromiter((v is None or v != v for v in vals), bool, len(vals))
+        return _numbers(pa, typ, np.array([0.0 if m else float(v) for v, m in zip(vals, missing)],
+                                          dtype=np.float64), missing)
+    missing = np.fromiter((v is None for v in vals), bool, len(vals))
+    return _numbers(pa, typ, np.array([0 if v is None else v for v in vals], dtype=np.int64),
+                    missing)
 
 
 class _Part:
@@ -250,7 +305,9 @@ class ParquetWriter(TableWriter):
         self.written: list[Path] = []
         self._data_cols = [c for c in spec.columns if c.name not in spec.partition]
         self._data_at = [spec.names.index(c.name) for c in self._data_cols]
-        self._schema = self._pa.schema([(c.name, arrow_type(self._pa, c)) for c in self._data_cols])
+        self._schema = self._pa.schema([self._pa.field(c.name, arrow_type(self._pa, c),
+                                                       nullable=not c.required)
+                                        for c in self._data_cols])
         self._dicts = _Dictionaries()
         self._scratch = threading.local()  # each lane's _Scratch
         if spec.partition:
@@ -342,10 +399,15 @@ class ParquetWriter(TableWriter):
         split = [n for n, c in by_name.items() if c.encoding == "split" and n not in strs + ints]
         encodings = {n: "DELTA_BINARY_PACKED" for n in ints if n not in few}
         encodings.update({n: "BYTE_STREAM_SPLIT" for n in split})
+        # snappy, but not where an encoding leaves nothing to squeeze: dictionary
+        # indices and delta-packed counts of noisy samples (it would cost time only)
+        plain = {n: "NONE" for n, c in by_name.items() if not c.statistics and n not in strs}
         writer = self._pq.ParquetWriter(
-            path, schema, store_schema=False, compression="snappy",
+            path, schema, store_schema=False,
+            compression={f.name: plain.get(f.name, "SNAPPY") for f in schema},
             use_dictionary=strs + few or False,  # few distinct texts; numbers plain or delta
-            write_statistics=[f.name for f in schema if f.name not in strs] or False,
+            write_statistics=[f.name for f in schema
+                              if f.name not in strs and by_name[f.name].statistics] or False,
             column_encoding=encodings or None)
         run = self._background.lane() if self._background is not None else run_now
         part = self._parts[key] = _Part(writer, path, run)

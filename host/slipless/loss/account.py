@@ -37,6 +37,24 @@ of the run (SPEC 3.8); one of another kind there is a discrepancy. A stream of
 a sample type this release does not read (SPEC 4 allows it) has its frames
 received but its samples left out of the sample accounting, with a note.
 
+A gap's cause (the first that holds, with its evidence):
+
+- disconnection: the link went down (capture events) between the frames
+  around it;
+- board_overflow: the board's dropped counter places frames in it, or the
+  board answered a resend with "no longer held";
+- corruption: damaged segments came in its place (the deframer's, and the
+  stretches of a capture file the reader stepped over: decode/deframe.py);
+- rotor_angle: none of these, and it lies in a sector of the turn where such
+  gaps gather beyond chance (loss/sector.py: a one-sided binomial test of the
+  gaps' angles against the angles of the frames received live);
+- unknown: nothing points anywhere.
+
+The board's dropped counter speaks of its live send queue; frames the inputs
+hold that did not come over the live link (a mirror, a raw stream, a mirror
+pull) may be among those it counted (loss/drops.py): they are a note, not a
+discrepancy.
+
 Samples, per stream (loss/streams.py): expected = END's per-stream total;
 obtained samples take their frame's term; the samples missing from the
 stream's tick grid are lost or dropped in proportion to the frames never
@@ -50,11 +68,12 @@ from typing import Any
 
 import numpy as np
 
-from slipless.decode.decoder import Decoder
+from slipless.decode.decoder import REPLY_KINDS, Decoder
 from slipless.loss.angle import histogram, rotor_angle
 from slipless.loss.collect import Facts, LinkDown, Resend, RunFacts
 from slipless.loss.drops import allocate
 from slipless.loss.metrics import GMIN, summary
+from slipless.loss.sector import explain
 from slipless.loss.streams import StreamAccount, account_streams
 from slipless.protocol import wire
 
@@ -67,7 +86,7 @@ MAX_UNSEEN_TAIL = 1_000_000  # frames END may claim beyond the last seen (~14 h 
 # past it (a frame whose CRC passed by chance carries any u32) is left out, named.
 MAX_ACCOUNT_FRAMES = 1 << 24  # 9.7 days of frames at 20 a second
 _REPLIES = (wire.SYNC, wire.ACK, wire.ERROR, wire.STATUS)  # the board answers commands after END
-_AFTER_END = _REPLIES + (wire.INFO,)  # kinds a board may send past END's count (SPEC 3.8)
+_AFTER_END = REPLY_KINDS  # kinds a board may send past END's count (SPEC 3.8)
 
 
 @dataclass
@@ -150,6 +169,21 @@ def _classify(f: RunFacts, expected: int, asked: list[Resend]) -> tuple[np.ndarr
     return cls, out_of_order
 
 
+def _not_live(f: RunFacts, expected: int, pulls: list[Resend]) -> np.ndarray:
+    """Frames obtained, but not over the live link the board's queue counter speaks
+    of: read from a raw stream (a mirror file named as an input, a serial log), or
+    arriving after the laptop asked the board for its mirror (PULL)."""
+    c = f.copies.columns()
+    held = c.seq < expected
+    other = c.origin[held] == f.copies.code("stream")
+    if pulls:
+        mono = c.mono_ns[held]
+        other |= (mono >= 0) & (mono >= min(r.mono_ns for r in pulls))
+    out = np.zeros(expected, dtype=bool)
+    out[c.seq[held][other]] = True
+    return out
+
+
 def _damaged(f: RunFacts, cls: np.ndarray, dropped: np.ndarray, whole_only: bool = False
              ) -> tuple[np.ndarray, int]:
     """Frames that most likely arrived damaged: the first D frames of each gap as
@@ -226,13 +260,22 @@ def account_run(f: RunFacts, dec: Decoder, resends: list[Resend], downs: list[Li
     notes: list[str] = []
     disc: list[str] = []
     expected, end_seen = _expected(f, notes, disc)
-    cls, out_of_order = _classify(f, expected, _requested(resends, st.board, st.run))
+    asked = _requested(resends, st.board, st.run)
+    cls, out_of_order = _classify(f, expected, [r for r in asked if not r.pull])
     # A gap with as many damaged segments as missing frames was all sent: the board
     # dropped none of it. Elsewhere the board's counters go first (they are counts;
     # where the damage sat inside a gap is a guess).
     none = np.zeros(expected, dtype=bool)
     sent, _ = _damaged(f, cls, none, whole_only=True)
-    alloc, problems = allocate(cls != RECEIVED, [s for s in f.status if s[0] < expected], sent)
+    elsewhere = _not_live(f, expected, [r for r in asked if r.pull]) & (cls == RECEIVED)
+    alloc, problems = allocate(cls != RECEIVED, [s for s in f.status if s[0] < expected], sent,
+                               elsewhere)
+    kept = int(np.count_nonzero(alloc & elsewhere))
+    if kept:
+        notes.append(f"the board counted {kept} frame(s) dropped from its live send queue that "
+                     "the inputs hold: they were read from the board's mirror, not the live link "
+                     "(the mirror keeps what the queue dropped)")
+    alloc &= ~elsewhere
     damaged, _ = _damaged(f, cls, alloc)
     spec_corrupt = _spec_corrupt(st, expected)
     corrupt = int(np.count_nonzero(spec_corrupt))
@@ -300,6 +343,8 @@ def analyse(facts: Facts, angle_stream: str | None = None, index_marker: int | N
         if angle is not None:
             acc.angle_rad = angle
             acc.angle = {"source": source, **histogram(angle, acc.live_lost, bins)}
+            sectors = explain(angle, acc.cls == RECEIVED, acc.gaps, bins)
+            acc.angle["sectors"] = [s.as_dict() for s in sectors]
         elif angle_stream or index_marker is not None:
             acc.notes.append(f"no loss against angle: {source}")
         out.append(acc)

@@ -162,19 +162,20 @@ def rotor_angle(f: RunFacts, at_us: np.ndarray, stream: str | None = None,
 
 
 def histogram(angle_rad: np.ndarray, lost: np.ndarray, bins: int) -> dict[str, Any]:
-    """Frames and frames not received live per angle bin; the worst bin."""
+    """Frames and frames not received live per angle bin; the worst bin (its middle
+    and share), both None when no frame with an angle was missed: no worst sector."""
     ok = np.isfinite(angle_rad)
     a = np.mod(angle_rad[ok], TWO_PI)
     k = np.minimum((a / TWO_PI * bins).astype(np.int64), bins - 1)
     frames = np.bincount(k, minlength=bins)
     missed = np.bincount(k, weights=lost[ok].astype(np.float64), minlength=bins).astype(np.int64)
     frac = np.divide(missed, frames, out=np.zeros(bins), where=frames > 0)
-    worst = int(np.argmax(frac))
+    worst = int(np.argmax(frac)) if missed.any() else None
     width = 360.0 / bins
     return {
         "frames_with_angle": int(ok.sum()),
         "bins": [{"from_deg": i * width, "to_deg": (i + 1) * width, "frames": int(frames[i]),
                   "lost": int(missed[i]), "loss_fraction": float(frac[i])} for i in range(bins)],
-        "worst_deg": (worst + 0.5) * width,
-        "worst_loss_fraction": float(frac[worst]),
+        "worst_deg": None if worst is None else (worst + 0.5) * width,
+        "worst_loss_fraction": None if worst is None else float(frac[worst]),
     }

@@ -391,6 +391,7 @@ class Resend:
     first: int
     last: int
     mono_ns: int
+    pull: bool = False  # a PULL: what came after is the board's file mirror (first > last)
 
 
 @dataclass
@@ -515,8 +516,11 @@ class LossSink(NullSink):
             f.not_held.append((fields["detail_a"], fields["detail_b"]))
 
 
+_COMMAND = struct.Struct("<" + wire.HEADER.lstrip("<") + wire.COMMAND_FIXED.lstrip("<"))
+
+
 class CommandLog:
-    """RESEND commands among the bytes the laptop wrote (capture or btsnoop TX)."""
+    """RESEND and PULL commands among the bytes the laptop wrote (capture or btsnoop TX)."""
 
     def __init__(self) -> None:
         self.resends: list[Resend] = []
@@ -525,10 +529,13 @@ class CommandLog:
     def feed(self, data: bytes, arrival: Arrival) -> None:
         d = self._deframers.setdefault(arrival.source, FastDeframer())
         for body, _, _ in d.feed(data):
-            if body[0] != (wire.VERSION << 4) | wire.COMMAND or len(body) < _RESEND.size:
+            if body[0] != (wire.VERSION << 4) | wire.COMMAND or len(body) < _COMMAND.size:
                 continue
-            _, board, run, _, opcode, _, first, last = _RESEND.unpack_from(body)
-            if opcode & 0x7F == wire.CMD_RESEND:  # plain or sealed (SPEC 3.9.1)
+            _, board, run, _, opcode, _ = _COMMAND.unpack_from(body)
+            if opcode & 0x7F == wire.CMD_PULL:  # plain or sealed (SPEC 3.9.1)
+                self.resends.append(Resend(board, run, 0, -1, arrival.mono_ns, pull=True))
+            elif opcode & 0x7F == wire.CMD_RESEND and len(body) >= _RESEND.size:
+                _, board, run, _, opcode, _, first, last = _RESEND.unpack_from(body)
                 self.resends.append(Resend(board, run, first, last, arrival.mono_ns))
 
     def new_input(self) -> None:

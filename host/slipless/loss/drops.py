@@ -19,6 +19,14 @@ one sent, so the block ends a run of missing frames. Within the window we
 take, in order: a run exactly as long as the count still to place, else the
 shortest longer run (from its end), else the longest run whole (latest first
 on ties), and repeat.
+
+What the counter speaks of is the live link alone: the board's file mirror is
+written before the send queue, so it keeps the frames the queue dropped. When
+the inputs hold frames of a window that did not come over the live link (a
+mirror file, a raw stream, a capture of a mirror pull), a count the window's
+missing frames cannot hold is placed on those: the frames the live link
+missed and the mirror kept, not a contradiction. Only a count that neither
+can hold is one.
 """
 
 from __future__ import annotations
@@ -65,7 +73,8 @@ def _take(free: np.ndarray, alloc: np.ndarray, lo: int, hi: int, want: int,
 
 
 def allocate(free: np.ndarray, statuses: Iterable[tuple[int, int, int]],
-             avoid: np.ndarray | None = None) -> tuple[np.ndarray, list[str]]:
+             avoid: np.ndarray | None = None, held: np.ndarray | None = None
+             ) -> tuple[np.ndarray, list[str]]:
     """Mark the frames the board's counters say it dropped.
 
     free: per seq, True where the frame did not arrive live (a candidate).
@@ -73,10 +82,14 @@ def allocate(free: np.ndarray, statuses: Iterable[tuple[int, int, int]],
     avoid: candidates taken only when a window has too few others (frames that
     damaged segments most likely were: the counters are counts, where damage sat
     is a guess, so a count is never left unplaced for it).
-    Returns the mark and the contradictions found.
+    held: frames obtained, but not over the live link (mirror, raw stream,
+    pull): taken last, for what the missing frames cannot hold.
+    Returns the mark (it may cover held frames) and the contradictions found.
     """
     alloc = np.zeros(free.size, dtype=bool)
     problems: list[str] = []
+    if held is not None:
+        held = held & ~free
     prev_seq, prev_dropped = -1, 0
     for seq, dropped, q in sorted(set(statuses)):
         delta = dropped - prev_dropped
@@ -87,6 +100,10 @@ def allocate(free: np.ndarray, statuses: Iterable[tuple[int, int, int]],
             got = _take(free, alloc, prev_seq - q, seq - 1 - q, delta, avoid)
             if got < delta:  # queue_high may understate the queue: look wider
                 got += _take(free, alloc, prev_seq - 2 * q - 1, seq - 1, delta - got, avoid)
+            if got < delta and held is not None:  # dropped live, kept by the mirror
+                got += _take(held, alloc, prev_seq - q, seq - 1 - q, delta - got)
+                if got < delta:
+                    got += _take(held, alloc, prev_seq - 2 * q - 1, seq - 1, delta - got)
             if got < delta:
                 problems.append(f"the board counted {delta} dropped frames between STATUS seq "
                                 f"{max(prev_seq, 0)} and {seq}, but only {got} are missing there")

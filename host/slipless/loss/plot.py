@@ -53,13 +53,15 @@ def _polar(ax: PolarAxes, a: RunAccount) -> None:
     n = len(bins)
     theta = np.radians([b["from_deg"] for b in bins]) + np.pi / n
     frac = np.array([b["loss_fraction"] for b in bins])
-    worst = int(np.argmax(frac))
+    worst = int(np.argmax(frac)) if a.angle["worst_deg"] is not None else -1
     colours = ["#b23a48" if i == worst else "#8d99ae" for i in range(n)]
     ax.bar(theta, frac, width=2 * np.pi / n, color=colours, edgecolor="white")
     ax.set_rticks([0.5, 1.0])
     ax.set_rlim(0, 1)
     ax.tick_params(labelsize=7)
-    ax.set_title(f"not live by angle\n(worst {a.angle['worst_deg']:.0f} deg)", fontsize=9)
+    worst_deg = a.angle["worst_deg"]
+    ax.set_title("not live by angle\n" + (f"(worst {worst_deg:.0f} deg)" if worst_deg is not None
+                                          else "(none missed: no worst sector)"), fontsize=9)
 
 
 def plot(accounts: Sequence[RunAccount], path: Path) -> None:

@@ -86,6 +86,13 @@ def run_dict(a: RunAccount) -> dict[str, Any]:
             "discrepancies": a.discrepancies, "notes": a.notes}
 
 
+def file_damage(facts: Facts) -> tuple[int, int]:
+    """(stretches, bytes) of the capture files the reader stepped over: damaged
+    segments of their own (decode/deframe.py's rule), beside the deframer's."""
+    stats = [s.stats for s in facts.sources if s.stats is not None]
+    return sum(st.damaged_stretches for st in stats), sum(st.damaged_bytes for st in stats)
+
+
 def document(accounts: Sequence[RunAccount], facts: Facts, max_loss: float | None) -> dict[str, Any]:
     runs = [run_dict(a) for a in accounts]
     keys = list(_frames(accounts[0])) + list(_samples(accounts[0])) if accounts else []
@@ -94,6 +101,7 @@ def document(accounts: Sequence[RunAccount], facts: Facts, max_loss: float | Non
     sfrac = (total["samples_missing"] / total["samples_expected"]
              if total.get("samples_expected") else 0.0)
     c = facts.decoder.counters
+    file_n, file_b = file_damage(facts)
     return {
         "slipless": __version__,
         "inputs": [str(s.path) for s in facts.sources if s.kind != "mirror"],
@@ -106,8 +114,12 @@ def document(accounts: Sequence[RunAccount], facts: Facts, max_loss: float | Non
         "closes": all(a.closes for a in accounts),
         # a board's idle boot run never ends with END: the runs that recorded say
         "end_seen": all(a.end_seen for a in accounts if not a.idle),
-        "corrupt_segments": c.corrupt + c.overlong,
-        "corrupt_bytes": c.corrupt_bytes,
+        # damaged segments and bytes, one rule (decode/deframe.py): the deframer's and
+        # the capture files' damaged stretches, these also apart
+        "corrupt_segments": c.corrupt + c.overlong + file_n,
+        "corrupt_bytes": c.corrupt_bytes + file_b,
+        "file_damaged_segments": file_n,
+        "file_damaged_bytes": file_b,
         "skipped_bytes": c.skipped_bytes,
         "gaps": [g for r in runs for g in r["gaps"]],
         "runs": runs,

@@ -39,8 +39,9 @@ from slipless.record.transports import Central, LinkError
 ANSWER_TIMEOUT_S = 10.0  # one command's answer (a BLE round trip is tens of ms: common practice)
 KEPT_STATUS = 16  # STATUS frames remembered to pair with a status command's ACK
 TICK_NS = 1000  # board ticks are microseconds (SPEC section 3: tick_hz 1 000 000)
-_REPLY_KIND = {wire.CMD_PING: wire.SYNC, wire.CMD_INFO: wire.INFO}  # the rest: ACK
-_ANSWERS = (wire.SYNC, wire.ACK, wire.ERROR, wire.INFO)
+_REPLY_KIND = {wire.CMD_PING: wire.SYNC, wire.CMD_INFO: wire.INFO,
+               wire.CMD_FIRMWARE: wire.FIRMWARE}  # the rest: ACK
+_ANSWERS = (wire.SYNC, wire.ACK, wire.ERROR, wire.INFO, wire.FIRMWARE)
 
 
 
@@ -66,7 +67,7 @@ def command_name(opcode: int) -> str:
 class Answer:
     """The frame that answered one command."""
 
-    kind: int  # wire.ACK, ERROR, SYNC or INFO
+    kind: int  # wire.ACK, ERROR, SYNC, INFO or FIRMWARE
     board: int
     run: int
     seq: int
@@ -76,7 +77,7 @@ class Answer:
 
     @property
     def error(self) -> str:
-        """'' for an ACK, SYNC or INFO; else the error's name (auth: 'auth bad_tag')."""
+        """'' for an ACK, SYNC, INFO or FIRMWARE; else the error's name (auth: 'auth bad_tag')."""
         if self.kind != wire.ERROR:
             return ""
         code = self.fields["code"]
@@ -280,6 +281,57 @@ async def read_info(link: BoardLink) -> BoardInfo:
     return info
 
 
+@dataclass
+class BoardFirmware:
+    """A FIRMWARE frame, read (SPEC 3.11): the hash of the board's code files."""
+
+    files: int
+    size: int
+    fw_sha: str  # hex, wire.FW_SHA_SIZE bytes; zeros when files is 0
+
+    def facts(self) -> dict[str, Any]:
+        return {"fw_sha": self.fw_sha, "fw_files": self.files, "fw_bytes": self.size}
+
+
+def firmware_refusal(error: str) -> str:
+    """Why a board gave no firmware hash, from its ERROR's name: one phrase."""
+    if error == "bad_command":
+        return "its firmware is older than the firmware command"
+    if error == "busy":
+        return "it does not read its code files during a run"
+    return f"it refused the firmware command ({error})"
+
+
+async def read_firmware(link: BoardLink) -> tuple[BoardFirmware | None, str]:
+    """FIRMWARE, unsealed (it changes nothing) -> (the hash, or None and why not)."""
+    a = await link.ask(wire.CMD_FIRMWARE)
+    if a.kind == wire.ERROR:
+        return None, firmware_refusal(a.error)
+    f = a.fields
+    return BoardFirmware(f["files"], f["size"], f["fw_sha"]), ""
+
+
+def laptop_firmware(profile: str) -> tuple[BoardFirmware | None, str]:
+    """SPEC 3.11's hash of the code files this laptop's `slipless flash` would copy to a
+    board running `profile` (compiled with mpy-cross, as flash does)
+    -> (the hash, or None and why it cannot be known)."""
+    import tempfile
+
+    from slipless.board.files import firmware_dir
+    from slipless.board.flash import build_plan, firmware_hash, load_profile, resolve_config
+    from slipless.errors import InputError
+
+    try:
+        fw = firmware_dir()
+        config, _ = resolve_config(fw, None, None)
+        prof = load_profile(fw, profile)
+        with tempfile.TemporaryDirectory(prefix="slipless-fwhash-") as tmp:
+            files, size, sha = firmware_hash(build_plan(fw, config, prof, Path(tmp)))
+    except InputError as exc:
+        return None, f"not compared: {exc}"
+    return BoardFirmware(files, size, sha), ""
+
+
 # A board's key on this laptop, chosen once the board has said who it is:
 # -> (keys.Signer or None, why there is none).
 KeyChooser = Callable[[BoardInfo], tuple[Any, str]]
@@ -293,6 +345,9 @@ class StatusReport:
     key_check: str  # ok | refused: WHY | board has no key | not checked (WHY)
     config_match: bool | None = None  # against the laptop's copy; None: not compared
     config_note: str = ""
+    firmware: BoardFirmware | None = None  # None: the board gave none (firmware_note says why)
+    firmware_note: str = ""
+    firmware_match: bool | None = None  # against this laptop's flash; None: not compared
 
     @property
     def key_ok(self) -> bool:
@@ -300,11 +355,13 @@ class StatusReport:
 
 
 async def read_status(link: BoardLink, choose_key: KeyChooser,
-                      laptop_sha: Callable[[BoardInfo], tuple[str | None, str]] | None = None
-                      ) -> StatusReport:
-    """INFO, then STATUS: sealed when this laptop holds the board's key, which
-    makes it a key check (SPEC 3.9.1); refused, it is asked again unsealed."""
+                      laptop_sha: Callable[[BoardInfo], tuple[str | None, str]] | None = None,
+                      laptop_fw: Callable[[BoardInfo], tuple[BoardFirmware | None, str]]
+                      | None = None) -> StatusReport:
+    """INFO, FIRMWARE, then STATUS: sealed when this laptop holds the board's key,
+    which makes it a key check (SPEC 3.9.1); refused, it is asked again unsealed."""
     info = await read_info(link)
+    firmware, firmware_note = await read_firmware(link)
     signer, why_none = choose_key(info)
     status = None
     if signer is None:
@@ -326,7 +383,14 @@ async def read_status(link: BoardLink, choose_key: KeyChooser,
         status = a.status or link.latest_status()
     if status is None:
         raise BoardError("the board acknowledged status but its STATUS frame did not arrive")
-    report = StatusReport(link.central.address, info, status, key_check)
+    report = StatusReport(link.central.address, info, status, key_check, firmware=firmware,
+                          firmware_note=firmware_note)
+    if laptop_fw is not None and firmware is not None:
+        mine, note = laptop_fw(info)
+        if mine is None:
+            report.firmware_note = note
+        else:
+            report.firmware_match = mine.fw_sha == firmware.fw_sha
     if laptop_sha is not None:
         sha, note = laptop_sha(info)
         report.config_note = note

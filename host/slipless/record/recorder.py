@@ -1,22 +1,25 @@
 """`slipless record`: capture a run from a board over BLE.
 
-The recorder connects (any Central from slipless.record.transports), starts the run,
-pings for clock alignment, writes every notification and command to a
-capture file, decodes live to see gaps, asks the board to resend them,
-reconnects with back-off when the link drops, and ends with STOP and a drain.
+The recorder connects (any Central from slipless.record.transports), asks the
+board who it is when told to (INFO and FIRMWARE: version, config and code hashes,
+kept in the capture as a `board` event; a board that does not answer is noted,
+not fatal), starts the run, pings for clock alignment, writes every notification
+and command to a capture file, decodes live to see gaps, asks the board to resend
+them, reconnects with back-off when the link drops, and ends with STOP and a drain.
 The state is a small table (STATES) so tests can walk it.
 """
 
 from __future__ import annotations
 
 import asyncio
+import json
 import struct
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
 
 from slipless.decode.decoder import Arrival, Decoder, NullSink, RunState, Tee
-from slipless.io.capture import RX, TX, CaptureWriter
+from slipless.io.capture import EVENT, RX, TX, CaptureWriter
 from slipless.io.pieces import TX_SOURCE_BASE
 from slipless.protocol import wire
 from slipless.record.transports import Central, LinkError
@@ -49,6 +52,10 @@ class RecordOptions:
     start: bool = True  # send START on the first connection
     pull: bool = False  # instead: ask for the board's file mirror and end when it has come
     signer: Any = None  # keys.Signer: seals start/stop/set_config/pull (None: sent unsealed)
+    ask_board: bool = False  # INFO and FIRMWARE on the first connection, before START
+    # (`slipless record` asks; off by default so a bare Recorder's first command is START)
+    board_wait_s: float = 2.0  # how long to wait for their answers (then noted, and on)
+    on_note: Callable[[str], None] | None = None  # told one line when something is noted
 
 
 class _LiveSink(NullSink):
@@ -62,11 +69,18 @@ class _LiveSink(NullSink):
         self.pulled = False  # the ACK that follows the last byte of a pulled mirror
         self.stop_answered = False  # the board's ACK (or ERROR) for STOP
         self.refused: list[tuple[int, int, int]] = []  # ERROR auth: (opcode, floor, why)
+        self.asked: set[int] = set()  # request numbers of the INFO and FIRMWARE sent
+        self.board_answers: list[tuple[int, int, int, int, dict[str, Any]]] = []  # (request,
+        # kind, board, run, fields) of their INFO, FIRMWARE or ERROR answers
 
     def status(self, run: RunState, seq: int, fields: dict[str, Any]) -> None:
         self.battery_mv = fields["battery_mv"]
 
     def reply(self, run: RunState, seq: int, kind: int, fields: dict[str, Any]) -> None:
+        if kind in (wire.INFO, wire.FIRMWARE, wire.ERROR) and fields["request"] in self.asked:
+            if kind != wire.ERROR or fields["opcode"] in (wire.CMD_INFO, wire.CMD_FIRMWARE):
+                self.board_answers.append((fields["request"], kind, run.board, run.run, fields))
+                return
         if kind == wire.END:
             self.ended = True
         elif kind == wire.ACK and fields["opcode"] == wire.CMD_PULL:
@@ -127,6 +141,8 @@ class Recorder:
         self._sealed: dict[int, bytes] = {}  # opcode -> args of the last sealed command
         self.auth_error = ""  # why the board refused a sealed command (not retryable)
         self._not_held_seen = 0
+        self.notes: list[str] = []  # one line each: what went otherwise than planned
+        self.boards: list[dict[str, Any]] = []  # what each board said at connect (board_facts)
 
     def _now(self) -> float:
         return float(self.clock.mono_ns()) / 1e9
@@ -233,6 +249,11 @@ class Recorder:
             self.capture.event(0, "connected", **info)
             self._move("live")
             try:
+                if self.opts.ask_board and not self._started and not self.opts.pull:
+                    asked_at = self._now()
+                    await self._ask_board()
+                    if deadline is not None:  # the run's time starts with START, after asking
+                        deadline += self._now() - asked_at
                 await self._begin()
                 await self._live(deadline)
             except LinkError as exc:  # a write failed: the link went before its callback said so
@@ -262,6 +283,43 @@ class Recorder:
         if not exc.retry or attempt >= self.opts.max_reconnects:
             return False
         return self._started or attempt + 1 < self.opts.first_tries
+
+    def _note(self, text: str) -> None:
+        self.notes.append(text)
+        self.capture.event(0, "note", text=text)
+        if self.opts.on_note is not None:
+            self.opts.on_note(text)
+
+    async def _ask_board(self) -> None:
+        """INFO and FIRMWARE (open commands: they change nothing), their answers kept
+        in the capture as one `board` event per board that answered. No answer within
+        board_wait_s: one note, and the recording goes on."""
+        sink = self.sink
+        info_req = self._next_request()
+        sink.asked.add(info_req)
+        await self._send(self._enc.command(wire.CMD_INFO, info_req))
+        fw_req = self._next_request()
+        sink.asked.add(fw_req)
+        await self._send(self._enc.command(wire.CMD_FIRMWARE, fw_req))
+        end = self._now() + self.opts.board_wait_s
+        while not (self._dropped.is_set() or self._stop.is_set()) and self._now() < end:
+            self._feed()
+            got = {(a[0], a[2]) for a in sink.board_answers}
+            boards = {b for r, b in got if r == info_req}
+            if boards and all((fw_req, b) in got for b in boards):
+                break
+            await asyncio.sleep(0.05)
+        self._feed()
+        self.boards = board_facts(sink.board_answers, info_req, fw_req)
+        for facts in self.boards:  # (written whole: a board's `name` is one of its fields)
+            self.capture.write(EVENT, 0, json.dumps({"event": "board", **facts}).encode())
+        if not self.boards:
+            self._note(f"the board did not answer INFO within {self.opts.board_wait_s:g} s: "
+                       "its version and hashes are not in the capture; recording on")
+        for facts in self.boards:
+            if facts.get("fw_note"):
+                self._note(f"board {facts['board']}: no firmware hash ({facts['fw_note']}); "
+                           "recording on")
 
     async def _begin(self) -> None:
         """The first connection's command: PULL or START (once they went, never again)."""
@@ -364,6 +422,32 @@ class Recorder:
             p.lost_ranges = _ranges(sorted(self.sink.not_held))
         if self.on_progress is not None:
             self.on_progress(p)
+
+
+def board_facts(answers: list[tuple[int, int, int, int, dict[str, Any]]], info_req: int,
+                fw_req: int) -> list[dict[str, Any]]:
+    """Per board that answered INFO: what the capture keeps of it (CAPTURE.md, `board`
+    event): identity, version, config hash, flags, and the firmware hash or why none."""
+    from slipless.record.control import Answer, BoardInfo, firmware_refusal
+
+    out: dict[int, dict[str, Any]] = {}
+    for request, kind, board, run, f in answers:
+        if request == info_req and kind == wire.INFO and board not in out:
+            info = BoardInfo.from_answer(Answer(kind, board, run, 0, f, 0))
+            out[board] = {"board": board, "run": run, "fw": info.fw, "name": info.name,
+                          "profile": info.profile, "config_sha": info.config_sha,
+                          "flags": info.flag_names, "uptime_s": info.uptime_s,
+                          "fw_sha": None, "fw_files": None, "fw_bytes": None,
+                          "fw_note": "it did not answer the firmware command"}
+    for request, kind, board, _, f in answers:
+        facts = out.get(board)
+        if request != fw_req or facts is None or facts["fw_sha"] is not None:
+            continue
+        if kind == wire.FIRMWARE:
+            facts.update(fw_sha=f["fw_sha"], fw_files=f["files"], fw_bytes=f["size"], fw_note="")
+        elif kind == wire.ERROR:
+            facts["fw_note"] = firmware_refusal(wire.ERROR_NAMES.get(f["code"], str(f["code"])))
+    return [out[b] for b in sorted(out)]
 
 
 def _ranges(seqs: list[tuple[int, int, int]]) -> list[tuple[int, int]]:

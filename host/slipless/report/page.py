@@ -1,9 +1,10 @@
 """`slipless report`: one self-contained HTML page about a run, to open or send on.
 
 Sections: the run, completeness (frame account, gaps, timeline, loss against
-rotor angle), the clock model and its residuals, signal traces around a few
-pulses, the per-condition table and the fit against the prediction, the noise
-of each stream and the reach of the pulse fit, and the safety notes. Each
+rotor angle), the board's health from its STATUS frames, the clock model and
+its residuals, the pulse-averaged waveform per condition (and one raw pulse),
+the per-condition table and the fit against the prediction, the noise of each
+stream and the reach of the pulse fit, and the safety notes. Each
 section is made from the same analyses as `loss`, `align`, `pulses` and
 `noise`; a section whose analysis cannot run says why instead.
 """
@@ -34,7 +35,6 @@ SAFETY = (
     "on stop, on error and after a lost link.",
     "Defer to local codes, institutional safety rules and licensed practice.",
 )
-TRACES = 3  # pulses shown as raw traces
 
 
 @dataclass
@@ -51,19 +51,26 @@ class ReportData:
     idle: set[tuple[int, int]] = field(default_factory=set)  # (board, run) with no run started
     channels: tuple[str, str] = ("cap_amp", "coil_current")  # signal, current
     noise: Any = None  # noise.Noise
+    status: dict[str, np.ndarray] = field(default_factory=dict)  # Run.status() columns
+    unchecked: list[Path] = field(default_factory=list)  # from a decode folder, no SHA-256 kept
+    sampled: set[tuple[int, int]] = field(default_factory=set)  # (board, run) holding samples
 
 
 def collect(run: Any, prediction: Path | None = None,
-            calibration: Path | None = None) -> ReportData:
+            calibration: Path | None = None, streams: dict[str, Any] | None = None
+            ) -> ReportData:
     """Every section's analysis from one decoded Run (run.open_run); a calibration
-    file corrects the streams first."""
+    file corrects the streams first. streams: the pulse analysis' stream names,
+    as `slipless pulses` takes them (signal, current, rotation, rotation_rate)."""
     data = ReportData([s.path for s in run.sources if s.kind != "mirror"],
                       [s.path for s in run.sources if s.kind == "mirror"])
     if calibration is not None:
         run.calibrate(calibration)
     _loss(data, run)
+    data.status = run.status()
+    data.sampled = {k for k, state in run.runs.items() if state.samples}
     _clock(data, run)
-    _pulses(data, run, prediction, calibration)
+    _pulses(data, run, prediction, calibration, streams or {})
     _noise(data, run, prediction)
     return data
 
@@ -111,11 +118,13 @@ def _clock(d: ReportData, run: Any) -> None:
 
 
 def _pulses(d: ReportData, run: Any, prediction: Path | None,
-            calibration: Path | None = None) -> None:
+            calibration: Path | None = None, streams: dict[str, Any] | None = None) -> None:
     from slipless.pulses.analysis import analyse, settings_from_args
     from slipless.pulses.options import namespace
 
-    st, opt = settings_from_args(namespace(prediction=prediction, calibration=calibration))
+    given = {k: v for k, v in (streams or {}).items() if v is not None}
+    st, opt = settings_from_args(namespace(prediction=prediction, calibration=calibration,
+                                           **given))
     d.channels = (st.signal, st.current)
     d.runs = run.pulse_runs()
     try:
@@ -146,11 +155,15 @@ def _recorded(path: Path) -> str:
 def _summary(d: ReportData) -> str:
     doc = d.loss_doc or {}
     rows = [(r["board"], r["run"], r["frames_expected"], r["samples_expected"],
-             "yes" if r["end_seen"] else "no", len(r["gaps"])) for r in doc.get("runs", [])]
+             "yes" if r["end_seen"] else "no", len(r.get("gaps") or [])) for r in doc.get("runs", [])]
     files = "".join(f"<li>{esc(p)}{esc(_recorded(p))}</li>" for p in d.inputs)
     files += "".join(f"<li>{esc(p)} (board mirror)</li>" for p in d.mirrors)
     pulses = "" if d.pulses is None else (
         f"<p>{len(d.pulses.pulses)} coil pulses found, {len(d.pulses.used)} used.</p>")
+    if d.unchecked:
+        files += ("<li class=\"note\">not checked against a SHA-256 (the decode folder's "
+                  "inputs.json records none): " + ", ".join(esc(p) for p in d.unchecked)
+                  + "</li>")
     return (f"<p>Inputs:</p><ul>{files}</ul>"
             + table(("board", "run", "frames", "samples", "end of run seen", "gaps"), rows)
             + pulses)
@@ -172,23 +185,7 @@ def _completeness(d: ReportData) -> str:
                   else '<span class="bad">the account does not close</span>')
         out.append(f"<h3>board {r['board']} run {r['run']}: {r['frames_expected']:,} frames "
                    f"expected; {closes}</h3>" + table(("term", "frames", "share"), rows))
-        causes: dict[str, int] = {}
-        for g in r["gaps"]:
-            causes[g["cause"]] = causes.get(g["cause"], 0) + g["frames"]
-        big = sorted(r["gaps"], key=lambda g: -g["frames"])[:6]
-        out.append("<p>Gaps in what arrived live, by likely cause: "
-                   + ", ".join(f"{esc(k)} {v} frames" for k, v in sorted(causes.items()))
-                   + ". The largest:</p>")
-        out.append(table(("frames (seq)", "count", "board s", "lasted s", "cause", "by resend",
-                          "from mirror", "lost", "dropped"),
-                         [(f"{g['first_seq']}-{g['last_seq']}", g["frames"],
-                           (g["board_start_us"] or 0) / 1e6, g["duration_s"], g["cause"],
-                           g["recovered_resend"], g["recovered_mirror"], g["lost"],
-                           g["dropped_board"]) for g in big]))
-        if r.get("angle"):
-            a = r["angle"]
-            out.append(f"<p>Loss against rotor angle: the worst sector is around "
-                       f"{a['worst_deg']:.0f} degrees.</p>")
+        out.append(_gaps(r.get("gaps") or []) + _angle(r.get("angle")))
     if idle:
         out.append("<p class=\"note\">Frames sent while no run was started (status while "
                    "idling), outside the accounts above: "
@@ -200,6 +197,35 @@ def _completeness(d: ReportData) -> str:
                    "and the share not received live per angle sector:</p>"
                    + img_bytes(d.loss_png, "loss timeline and loss against angle"))
     return "".join(out)
+
+
+def _gaps(gaps: list[dict[str, Any]]) -> str:
+    """The gaps by cause and the largest few; a line saying so when there are none."""
+    if not gaps:
+        return "<p>No gaps in what arrived live.</p>"
+    causes: dict[str, int] = {}
+    for g in gaps:
+        causes[g["cause"]] = causes.get(g["cause"], 0) + g["frames"]
+    big = sorted(gaps, key=lambda g: -g["frames"])[:6]
+    return ("<p>Gaps in what arrived live, by likely cause: "
+            + ", ".join(f"{esc(k)} {v} frames" for k, v in sorted(causes.items()))
+            + ". The largest:</p>"
+            + table(("frames (seq)", "count", "board s", "lasted s", "cause", "by resend",
+                     "from mirror", "lost", "dropped"),
+                    [(f"{g['first_seq']}-{g['last_seq']}", g["frames"],
+                      (g["board_start_us"] or 0) / 1e6, g["duration_s"], g["cause"],
+                      g["recovered_resend"], g["recovered_mirror"], g["lost"],
+                      g["dropped_board"]) for g in big]))
+
+
+def _angle(angle: dict[str, Any] | None) -> str:
+    """The worst angle sector, when the loss account names one (none: nothing missed)."""
+    if not angle:
+        return ""
+    worst = angle.get("worst_deg")
+    if not isinstance(worst, int | float) or isinstance(worst, bool):
+        return "<p>Loss against rotor angle: no frame with an angle was missed, so no worst sector.</p>"
+    return f"<p>Loss against rotor angle: the worst sector is around {worst:.0f} degrees.</p>"
 
 
 def _clock_section(d: ReportData) -> str:
@@ -241,47 +267,17 @@ def _no_pulses(d: ReportData) -> str:
 
 
 def _traces(d: ReportData) -> str:
-    a = d.pulses
-    if a is None:
+    if d.pulses is None:
         return _no_pulses(d)
-    picks = _pick_pulses(a)
-    if not picks:
-        return "<p class=\"note\">no pulse with both signal and current to show</p>"
-    plt = pyplot()
+    from slipless.report.waveforms import section
 
-    runs = {(rd.board, rd.run): rd for rd in d.runs}
-    fig, axes = plt.subplots(2, len(picks), figsize=(11, 4.6), sharex="col", squeeze=False,
-                             layout="constrained")
-    sig, cur = d.channels
-    for k, p in enumerate(picks):
-        rd = runs[(p.board, p.run)]
-        lo, hi = p.onset_s - 0.6, p.end_s + 0.6
-        for row, name, colour in ((0, sig, "#38523a"), (1, cur, "#8a4b2a")):
-            s = rd.streams.get(name)
-            if s is None:
-                continue
-            t, v = s.window(lo, hi)
-            axes[row, k].plot(t, v, lw=0.7, color=colour)
-            axes[row, k].set_ylabel(f"{name} ({s.unit})", fontsize=8)
-        axes[0, k].set_title(f"pulse {p.index}: field {'+' if p.polarity > 0 else '-'}, "
-                             f"{p.rotation_rad_s:+.2f} rad/s", fontsize=9)
-        axes[1, k].set_xlabel("board time (s)")
-    return ("<p>The amplifier and the coil current around a few pulses (raw samples, "
-            "board time):</p>" + png(fig))
+    return section(d.pulses, d.runs, d.channels)
 
 
-def _pick_pulses(a: Any) -> list[Any]:
-    """One used pulse per (field sign, rotation) until TRACES are chosen."""
-    seen: set[tuple[int, int]] = set()
-    out = []
-    for p in a.used:
-        key = (p.polarity, int(np.sign(round(p.rotation_rad_s, 1))))
-        if key not in seen:
-            seen.add(key)
-            out.append(p)
-        if len(out) == TRACES:
-            break
-    return out
+def _health(d: ReportData) -> str:
+    from slipless.report.health import section
+
+    return section(d.status, d.sampled or None)
 
 
 def _conditions(d: ReportData) -> str:
@@ -365,8 +361,9 @@ def render(d: ReportData, title: str, made: str | None = None) -> str:
     seed gives the same page)."""
     sections = [("summary", "The run", _summary(d)),
                 ("completeness", "Completeness", _completeness(d)),
+                ("health", "Board health", _health(d)),
                 ("clock", "Clock model", _clock_section(d)),
-                ("traces", "Signals around pulses", _traces(d)),
+                ("traces", "Averaged pulse waveforms", _traces(d)),
                 ("conditions", "Conditions and the prediction", _conditions(d)),
                 ("noise", "Noise and sensitivity", _noise_section(d)),
                 ("safety", "Safety notes", _safety())]

@@ -157,7 +157,7 @@ Record = tuple[int, int, int, bytes]  # mono_ns, type, source, payload
 def _received(rng: np.random.Generator, c: ClockSim, src: int,
               frames: list[tuple[int, bytes]]) -> list[Record]:
     send = np.array([f[0] for f in frames], dtype=np.int64)
-    rx = deliver(rng, c, c.laptop_s(send), c.floor_s)  # one link: notifications in order
+    rx = deliver(rng, c, c.laptop_s(send), c.floor_s + c.air_s)  # one link: notifications in order
     return [(int(math.ceil(t * 1e9)), RX, src, f) for t, (_, f) in zip(rx, frames)]
 
 
