@@ -195,8 +195,6 @@ def _forest(rep: CampaignReport, both: tuple[float, float, float] | None) -> Any
 
 def write(rep: CampaignReport, out: Path, title: str = "slipless campaign report",
           made: str | None = None) -> Path:
-    try:
-        out.write_text(render(rep, title, made), encoding="utf-8")
-    except OSError as exc:
-        raise InputError(f"--out {out}: cannot write ({exc.strerror})") from exc
-    return out
+    from slipless.report.html import write_file
+
+    return write_file(out, render(rep, title, made))

@@ -149,12 +149,7 @@ class FastDeframer:
         The held tail (a frame's start) is counted as close() counts it, and the
         bytes up to the next delimiter (that frame's rest) as damaged bytes too,
         not as another segment."""
-        n = len(self._tail) + self._tail_dropped
-        if n:
-            if self._synced:
-                self.corrupt_bytes += n
-            else:
-                self.skipped += n
+        n = self._count_tail()
         self._pos += n
         self._tail = b""
         self._tail_overlong = False
@@ -359,11 +354,16 @@ class FastDeframer:
 
     def close(self) -> int:
         """End of input: count an unterminated tail; return its length."""
+        n = self._count_tail()
+        self._tail = b""
+        return n
+
+    def _count_tail(self) -> int:
+        """The held tail's bytes: damaged once in sync, else skipped before it."""
         n = len(self._tail) + self._tail_dropped
         if n:
             if self._synced:
                 self.corrupt_bytes += n
             else:
                 self.skipped += n
-        self._tail = b""
         return n

@@ -11,7 +11,10 @@ import html
 import io
 import math
 from collections.abc import Sequence
+from pathlib import Path
 from typing import Any
+
+from slipless.errors import InputError
 
 CSS = """
 body { font: 15px/1.45 system-ui, sans-serif; color: #1d232b; background: #f4f1ea;
@@ -87,3 +90,12 @@ def page(title: str, subtitle: str, sections: Sequence[tuple[str, str, str]], fo
             f"<title>{esc(title)}</title><style>{CSS}</style></head><body><main>"
             f"<header><h1>{esc(title)}</h1><p class=\"sub\">{esc(subtitle)}</p>"
             f"<nav>{nav}</nav></header>{body}<footer>{esc(footer)}</footer></main></body></html>\n")
+
+
+def write_file(out: Path, text: str) -> Path:
+    """A page written to out; a folder that cannot take it is one line."""
+    try:
+        out.write_text(text, encoding="utf-8")
+    except OSError as exc:
+        raise InputError(f"--out {out}: cannot write ({exc.strerror})") from exc
+    return out

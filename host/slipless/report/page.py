@@ -21,7 +21,7 @@ import numpy as np
 
 from slipless.errors import InputError
 from slipless.pulses.fit import SE_NAMES
-from slipless.report.html import esc, img_bytes, num, page, png, table
+from slipless.report.html import esc, img_bytes, num, page, png, table, write_file
 from slipless.report.plotting import pyplot
 from slipless.version import __version__
 
@@ -375,8 +375,4 @@ def render(d: ReportData, title: str, made: str | None = None) -> str:
 
 def write(d: ReportData, out: Path, title: str = "slipless run report",
           made: str | None = None) -> Path:
-    try:
-        out.write_text(render(d, title, made), encoding="utf-8")
-    except OSError as exc:
-        raise InputError(f"--out {out}: cannot write ({exc.strerror})") from exc
-    return out
+    return write_file(out, render(d, title, made))
