@@ -28,8 +28,10 @@ def rows(path: Path) -> list[dict[str, str]]:
 def test_decode_writes_tables(tmp_path: Path) -> None:
     assert main(["decode", str(VECTORS / "09-end.bin"), "--out", str(tmp_path), "--quiet"]) == 0
     samples = rows(tmp_path / "samples.csv")
-    assert [(r["stream"], r["raw"], r["unit"]) for r in samples] == [
+    unit = {r["stream"]: r["unit"] for r in rows(tmp_path / "streams.csv")}  # once per stream
+    assert [(r["stream"], r["raw"], unit[r["stream"]]) for r in samples] == [
         ("0", "5", "V"), ("0", "6", "V"), ("1", "7", "A"), ("1", "8", "A")]
+    assert "unit" not in samples[0] and "name" not in samples[0]
     assert float(samples[1]["value"]) == pytest.approx(6 * 0.0001)
     assert float(samples[1]["board_time_s"]) == pytest.approx(0.001)
     runs = rows(tmp_path / "runs.csv")

@@ -155,7 +155,8 @@ def decoded(timed_capture: Path, tmp_path_factory: pytest.TempPathFactory) -> di
 def test_parquet_is_a_dataset_partitioned_by_board_and_run(decoded: dict[str, Path]) -> None:
     parts = sorted(p.relative_to(decoded["parquet"]).as_posix()
                    for p in decoded["parquet"].rglob("*.parquet"))
-    assert "samples/board=1/run=1/part-0.parquet" in parts
+    assert "samples/board=1/run=1/stream=0/part-0.parquet" in parts  # samples: and by stream
+    assert "frames/board=1/run=1/part-0.parquet" in parts
     assert {p.split("/")[0] for p in parts} == set(SPECS)
 
 
@@ -191,7 +192,10 @@ def test_duckdb_reads_types_nulls_partitions_and_metadata(decoded: dict[str, Pat
                              f"{scan('samples')})").fetchall())
     assert types["raw"] == "BIGINT" and types["tick_us"] == "BIGINT"
     assert types["value"] == "DOUBLE" and types["board_time_s"] == "DOUBLE"
-    assert types["name"] == "VARCHAR" and types["board"] == "BIGINT"
+    assert types["stream"] == "BIGINT" and types["board"] == "BIGINT"  # hive keys
+    named = con.execute(f"SELECT DISTINCT s.name, s.unit FROM {scan('samples')} JOIN "
+                        f"{scan('streams')} s USING (board, run, stream)").fetchall()
+    assert ("cap_amp", "V") in named  # a stream's name and unit: joined from streams
     timing = dict(con.execute(f"SELECT column_name, column_type FROM (DESCRIBE SELECT * FROM "
                               f"{scan('timing')})").fetchall())
     assert timing["rx_wall_utc"] in ("TIMESTAMPTZ_NS", "TIMESTAMP WITH TIME ZONE")  # ns; older: us
@@ -304,3 +308,10 @@ def test_a_second_decode_replaces_the_dataset(tmp_path: Path) -> None:
     assert boards == {"board=1"} and (tmp_path / "samples" / "notes.txt").exists()
     got = read_decoded(tmp_path, "samples", ("raw",))
     assert got is not None and got["raw"].tolist() == [5, 6, 7, 8]
+    # a file where an older release put samples (a level above stream=S) goes too
+    part = next((tmp_path / "samples").rglob("part-0.parquet"))  # .../run=R/stream=S/
+    old = part.parent.parent / "part-0.parquet"
+    old.write_bytes(part.read_bytes())
+    decode_files([VECTORS / "09-end.bin"], tmp_path, "parquet", None)
+    assert not old.exists() and read_decoded(tmp_path, "samples", ("raw",))["raw"].tolist() == [
+        5, 6, 7, 8]

@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 
 from slipless.decode.decoder import Decoder, NullSink, RunState, StreamInfo
-from slipless.decode.tables import SPECS, TableSink
+from slipless.decode.tables import SPECS, TableSink, read_decoded
 from slipless.protocol import wire
 
 H, B, UH, I32, F32 = 0x68, 0x62, 0x48, 0x69, 0x66  # int16, int8, uint16, int32, float32
@@ -94,10 +94,10 @@ def reference_csv(data: bytes, chunk: int) -> bytes:
     for run, info, seq, tick, raw in sink.rows:
         is_float = info.dtype.kind == "f"
         value = float(raw) * info.scale + info.offset
-        out.writerow([run.board, run.run, info.stream, info.name, seq, tick,
+        out.writerow([run.board, run.run, info.stream, seq, tick,
                       repr(tick / run.tick_hz) if run.tick_hz else "",
                       "" if is_float else int(raw), "" if value != value else repr(value),
-                      info.unit, repr(float(raw)) if is_float and raw == raw else ""])
+                      repr(float(raw)) if is_float and raw == raw else ""])
     return text.getvalue().encode()
 
 
@@ -172,22 +172,42 @@ def test_parquet_holds_the_same_samples(tmp_path: Path) -> None:
     data = capture(*CASES["microseconds"], seed=3)
     folder = write_tables(data, tmp_path, "parquet", 1 << 20)
     table = read_arrow(folder / "samples")
-    got = sorted(zip(*(table.column(c).to_pylist() for c in ("stream", "seq", "tick_us", "name",
+    got = sorted(zip(*(table.column(c).to_pylist() for c in ("stream", "seq", "tick_us",
                                                              "board_time_s", "raw", "value",
-                                                             "unit", "raw_float"))),
+                                                             "raw_float"))),
                  key=lambda r: (r[0], r[1], r[2]))
     text = reference_csv(data, 1 << 20).decode()
     want = []
     for r in list(csv.reader(io.StringIO(text, newline="")))[1:]:
-        want.append((int(r[2]), int(r[4]), int(r[5]), r[3], float(r[6]),
-                     int(r[7]) if r[7] else None, float(r[8]) if r[8] else None, r[9] or None,
-                     float(r[10]) if r[10] else None))
+        want.append((int(r[2]), int(r[3]), int(r[4]), float(r[5]),
+                     int(r[6]) if r[6] else None, float(r[7]) if r[7] else None,
+                     float(r[8]) if r[8] else None))
     want.sort(key=lambda r: (r[0], r[1], r[2]))
     assert len(got) == len(want)
     for a, b in zip(got, want):
-        assert a[:4] == b[:4] and a[5] == b[5] and a[7] == (b[7] or "")
-        for x, y in ((a[4], b[4]), (a[6], b[6]), (a[8], b[8])):
+        assert a[:3] == b[:3] and a[4] == b[4]
+        for x, y in ((a[3], b[3]), (a[5], b[5]), (a[6], b[6])):
             assert x == y or (x is None and y is None) or (x != x and y != y)
+
+
+def test_samples_name_their_stream_through_the_streams_table(tmp_path: Path) -> None:
+    """A stream's name and unit are in `streams` once per run, not on every sample
+    row; read_decoded puts them back, the same from CSV and from Parquet."""
+    data = capture(*CASES["all_types"], seed=5)
+    got = {}
+    for fmt in ("csv", "parquet"):
+        if fmt == "parquet":
+            pytest.importorskip("pyarrow")
+        folder = write_tables(data, tmp_path / fmt, fmt, 1 << 20)
+        got[fmt] = read_decoded(folder, "samples", ("stream", "name", "unit", "raw"))
+    by_stream = {s[0]: (s[6], s[7]) for s in STREAMS}  # id -> (name, unit)
+    for cols in got.values():
+        assert set(cols["stream"].tolist()) == set(by_stream)
+        assert [(n, u) for n, u in zip(cols["name"], cols["unit"])] == [
+            by_stream[s] for s in cols["stream"].tolist()]
+    order = [np.lexsort((np.arange(len(c["stream"])), c["stream"])) for c in got.values()]
+    a, b = (c["name"][o] for c, o in zip(got.values(), order))
+    assert a.tolist() == b.tolist()
 
 
 def test_parquet_samples_schema_and_a_run_without_tick_rate(tmp_path: Path) -> None:
@@ -205,12 +225,16 @@ def test_parquet_samples_schema_and_a_run_without_tick_rate(tmp_path: Path) -> N
     for f in files:
         meta = pq.ParquetFile(f)
         fields = {c.name: c.max_definition_level for c in meta.schema}
-        assert {k for k, v in fields.items() if v == 0} == {"stream", "name", "seq", "tick_us",
-                                                            "unit"}
+        # board, run and stream are the hive folders (board=B/run=R/stream=S), not columns
+        assert f.parent.name.startswith("stream=") and f.parent.parent.name.startswith("run=")
+        assert {k for k, v in fields.items() if v == 0} == {"seq", "tick_us"}
+        assert not {"board", "run", "stream", "name", "unit"} & set(fields)
         group = meta.metadata.row_group(0)
         stats = {group.column(i).path_in_schema for i in range(group.num_columns)
                  if group.column(i).is_stats_set}
-        assert stats == {"stream", "seq", "tick_us", "board_time_s"}
+        assert stats == {"seq", "tick_us", "board_time_s"}
+    assert sorted(int(f.parent.name.split("=")[1]) for f in files) == sorted(
+        s[0] for s in STREAMS)
 
     still = capture(0, 2.0, 0, 0, CODED[:1])
     table = read_arrow(write_tables(still, tmp_path / "b", "parquet", 1 << 20) / "samples")

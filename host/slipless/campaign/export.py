@@ -67,7 +67,7 @@ def _manifest(out: Path, folder: Path, where: str | None) -> Path:
                      "tables": {name: {c.name: c.unit for c in spec.columns}
                                 for name, spec in SPECS.items()}},
            "notes": ["an empty unit: a count, a code or text",
-                     "samples.value: in the unit of its row's unit column"]}
+                     "samples.value: in its stream's unit (streams.unit, by board, run and stream)"]}
     path = out / MANIFEST
     path.write_text(json.dumps(doc, indent=1) + "\n")
     return path

@@ -17,8 +17,9 @@ from typing import Any
 import numpy as np
 
 from slipless.decode.decoder import Arrival, RunState, StreamInfo
+from slipless.errors import InputError
 from slipless.io.folders import out_folder
-from slipless.io.table_files import find_table, open_table, read_columns
+from slipless.io.table_files import column_names, find_table, open_table, read_columns
 from slipless.io.table_io import (
     FLOAT,
     FORMATS,
@@ -50,14 +51,14 @@ _TIME = (("tick_us", INT, "us"), Col("board_time_s", FLOAT, "s", encoding="split
 SPECS: dict[str, Spec] = {s.name: s for s in (
     # samples: the columns every sample has are required in Parquet (board_time_s is
     # missing under a descriptor with tick_hz 0); the values keep no page statistics
-    # (readers filter on stream, seq and times; min/max per page costs time)
-    spec("samples", [*_RUN, Col("stream", INT, encoding="dictionary", required=True),
-                     Col("name", STR, required=True),
+    # (readers filter on stream, seq and times; min/max per page costs time). A stream's
+    # name and unit are in `streams`, not repeated on every row (a sixth of the CSV text).
+    spec("samples", [*_RUN, Col("stream", INT, required=True),
                      Col("seq", INT, required=True), Col("tick_us", INT, "us", required=True),
                      _TIME[1],
                      Col("raw", INT, "count", statistics=False),
-                     Col("value", FLOAT, "see unit", encoding="dictionary", statistics=False),
-                     Col("unit", STR, required=True), Col("raw_float", FLOAT, statistics=False)]),
+                     Col("value", FLOAT, "streams.unit", encoding="dictionary", statistics=False),
+                     Col("raw_float", FLOAT, statistics=False)]),
     spec("events", [*_RUN, ("seq", INT), *_TIME, ("event", STR), ("code", INT),
                     ("value", INT)]),
     spec("status", [*_RUN, ("seq", INT), *_TIME, ("battery_mV", INT, "mV"),
@@ -77,12 +78,17 @@ SPECS: dict[str, Spec] = {s.name: s for s in (
                   ("samples", INT), ("events", INT), ("end_reason", STR),
                   ("ticks_uncertain", INT), ("frames_undecodable", INT)]),
 )}
+# samples: a file per stream (Parquet: the folder stream=S), so streams encode in parallel
 SPECS = {k: Spec(v.name, v.columns, ("board", "run"), "stream" if k == "samples" else "")
-         for k, v in SPECS.items()}  # samples: a file per stream, so streams encode in parallel
-# Column names per table, as `slipless align` repeats them in its own tables (it
-# writes raw as float, so it has no raw_float).
+         for k, v in SPECS.items()}
+# Column names per table, as `slipless align` writes them in its own tables: it
+# writes raw as float, so it has no raw_float, and its samples (every board's
+# streams in one file) keep each row's stream name and unit.
 SCHEMAS: dict[str, tuple[str, ...]] = {
     name: tuple(n for n in s.names if n != "raw_float") for name, s in SPECS.items()}
+SCHEMAS["samples"] = ("board", "run", "stream", "name", "seq", "tick_us", "board_time_s", "raw",
+                      "value", "unit")
+_NAMED = ("name", "unit")  # samples' columns that come from streams when a table lacks them
 
 
 
@@ -92,7 +98,29 @@ def read_decoded(folder: Path, name: str, columns: Sequence[str]) -> dict[str, n
     path = find_table(folder, name)
     if path is None:
         return None
-    return read_columns(path, columns, {c.name: c.kind for c in SPECS[name].columns})
+    kinds = {c.name: c.kind for c in SPECS[name].columns}
+    named = [c for c in columns if c in _NAMED] if name == "samples" else []
+    if named and not set(named) <= set(column_names(path)):
+        return _with_names(folder, path, list(columns), kinds)
+    return read_columns(path, columns, kinds)
+
+
+def _with_names(folder: Path, path: Path, columns: list[str],
+                kinds: dict[str, str]) -> dict[str, np.ndarray]:
+    """Samples' columns with each row's stream name and unit looked up in
+    `streams` (a run lists each of its streams once there)."""
+    keys = ("board", "run", "stream")
+    got = read_columns(path, [c for c in dict.fromkeys([*columns, *keys]) if c not in _NAMED], kinds)
+    streams = read_decoded(folder, "streams", [*keys, *_NAMED])
+    if streams is None:
+        raise InputError(f"{folder}: samples without a streams table (their names and units)")
+    n = len(got["stream"])
+    at = np.full(n, -1, dtype=np.int64)
+    for i, key in enumerate(zip(*(streams[k].tolist() for k in keys))):
+        at[(got["board"] == key[0]) & (got["run"] == key[1]) & (got["stream"] == key[2])] = i
+    if (at < 0).any():
+        raise InputError(f"{folder}: samples of a stream its streams table does not list")
+    return {c: streams[c][at] if c in _NAMED else got[c] for c in columns}
 
 
 _CODED_BITS = 16  # sample types of at most this many bits are formatted once per value
@@ -133,7 +161,11 @@ class _Names:
     def __init__(self, *first: str | None) -> None:
         self.codes: dict[str | None, int] = {t: i for i, t in enumerate(first)}
 
-    def coded(self, texts: Sequence[str | None], name: str) -> Coded:
+    def coded(self, texts: Any, name: str) -> Coded:
+        if isinstance(texts, _Repeat):  # one text throughout
+            code = self.codes.setdefault(texts.value, len(self.codes))
+            return Coded(np.full(texts.n, code, dtype=np.int64), np.array(list(self.codes), dtype=object),
+                         (name, len(self.codes)))
         codes = self.codes
         for t in dict.fromkeys(texts):  # the new ones, in order of appearance
             codes.setdefault(t, len(codes))
@@ -174,28 +206,63 @@ class _FrameRows(_Rows):
 
     def columns(self) -> list[Any]:
         parts = [*self._parts, self.rows] if self.rows else self._parts
+        # per column, each part's values: an array, or a list when they may hold None
         cols: list[list[Any]] = [[] for _ in range(9)]
-        board, run, seq, kind, fate, origin, source, offset, wall = cols
         for part in parts:
             if isinstance(part, list):
                 for col, values in zip(cols, zip(*part)):
-                    col.extend(values)
+                    col.append(list(values))
                 continue
             state, seq0, offsets, how, src, at = part
             n = len(offsets)
-            board.extend([state.board] * n)
-            run.extend([state.run] * n)
-            seq.extend(range(seq0, seq0 + n))
-            kind.extend([wire.SAMPLES] * n)
-            fate.extend(["received"] * n)
-            origin.extend([how] * n)
-            source.extend([src] * n)
-            offset.extend(offsets.tolist())
-            wall.extend([at] * n)
-        kinds = np.array(kind, dtype=np.int64)
-        return [board, run, seq, Coded(kinds, _KIND_TEXT, "kind"),
+            for col, value in zip(cols, (state.board, state.run, None, wire.SAMPLES, "received",
+                                         how, src, None, at)):
+                col.append(_Repeat(value, n))
+            cols[2][-1] = np.arange(seq0, seq0 + n, dtype=np.int64)
+            cols[7][-1] = np.asarray(offsets, dtype=np.int64)
+        n = sum(p.n if isinstance(p, _Repeat) else len(p) for p in cols[2])
+        board, run, seq, kind, fate, origin, source, offset, wall = (_joined(c, n) for c in cols)
+        kinds = (np.full(n, kind.value, dtype=np.int64) if isinstance(kind, _Repeat)
+                 else np.asarray(kind, dtype=np.int64))
+        return [_plain(board), _plain(run), seq, Coded(kinds, _KIND_TEXT, "kind"),
                 self._fates.coded(fate, "fate"), self._origins.coded(origin, "origin"),
-                source, offset, wall, wall]
+                _plain(source), _plain(offset), _plain(wall), _plain(wall)]
+
+
+class _Repeat:
+    """One value for n rows (a stretch of frames in a column of the frames table)."""
+
+    __slots__ = ("value", "n")
+
+    def __init__(self, value: Any, n: int) -> None:
+        self.value, self.n = value, n
+
+
+def _joined(parts: list[Any], n: int) -> Any:
+    """A frames-table column of n rows from its parts (lists, arrays, _Repeat): a
+    _Repeat when one value fills it, an int64 array when it holds ints only,
+    else a list."""
+    seen = {p.value for p in parts if isinstance(p, _Repeat)}
+    for p in parts:
+        if isinstance(p, list):
+            seen.update(p)
+    arrays = any(isinstance(p, np.ndarray) for p in parts)
+    if len(seen) == 1 and not arrays:
+        return _Repeat(next(iter(seen)), n)
+    if all(type(v) is int for v in seen):
+        return np.concatenate([np.full(p.n, p.value, dtype=np.int64) if isinstance(p, _Repeat)
+                               else np.asarray(p, dtype=np.int64) for p in parts])
+    out: list[Any] = []
+    for p in parts:
+        if isinstance(p, _Repeat):
+            out.extend([p.value] * p.n)
+        else:
+            out.extend(p.tolist() if isinstance(p, np.ndarray) else p)
+    return out
+
+
+def _plain(col: Any) -> Any:
+    return Const(col.value) if isinstance(col, _Repeat) else col
 
 
 class _TimingRows(_Rows):
@@ -209,19 +276,18 @@ class _TimingRows(_Rows):
 class _Streams:
     """Every stream description seen, each with a code (the frames' form names a
     frame's stream by it), and the code space of the <= 16-bit ones: each such
-    description's raw values, scaled values and unit as one block of codes."""
+    description's raw values and scaled values as one block of codes."""
 
     def __init__(self) -> None:
         self.index: dict[tuple[Any, ...], int] = {}
         self.infos: list[StreamInfo] = []
-        self.blocks: dict[tuple[Any, ...], int] = {}  # (type, scale, offset, unit) -> first code
+        self.blocks: dict[tuple[Any, ...], int] = {}  # (type, scale, offset) -> first code
         self._raw: list[np.ndarray] = []
         self._value: list[np.ndarray] = []
-        self._unit: list[np.ndarray] = []
         self.space = 0  # the code space's number: its texts are kept under it
         self._entries: dict[int, tuple[StreamInfo, int, int | None]] = {}
-        self.tables: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None
-        self.columns: tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray] | None = None
+        self.tables: tuple[np.ndarray, np.ndarray] | None = None
+        self.columns: tuple[np.ndarray, np.ndarray] | None = None
 
     def known(self, info: StreamInfo) -> tuple[int, int | None] | None:
         """entry(info) if it was asked for before (the decoder keeps its objects)."""
@@ -249,13 +315,11 @@ class _Streams:
             self.columns = None
         return got
 
-    def per_stream(self) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-        """stream id, name, unit and period of every code."""
+    def per_stream(self) -> tuple[np.ndarray, np.ndarray]:
+        """stream id and period of every code."""
         if self.columns is None:
             infos = self.infos
             self.columns = (np.array([i.stream for i in infos], np.int64),
-                            np.array([i.name for i in infos], dtype=object),
-                            np.array([i.unit for i in infos], dtype=object),
                             np.array([i.period_us for i in infos], np.int64))
         return self.columns
 
@@ -270,14 +334,14 @@ class _Streams:
                 and len(self.blocks) >= MAX_CODE_BLOCKS)
 
     def reset(self) -> None:
-        self.blocks, self._raw, self._value, self._unit = {}, [], [], []
+        self.blocks, self._raw, self._value = {}, [], []
         self.tables = None
         self._entries = {}
         self.space += 1
 
     @staticmethod
     def _key(info: StreamInfo) -> tuple[Any, ...]:
-        return (info.type, info.scale, info.offset, info.unit)
+        return (info.type, info.scale, info.offset)
 
     def _shift(self, info: StreamInfo) -> int:
         """What a raw value of info's stream adds to become its code in this space
@@ -291,15 +355,13 @@ class _Streams:
             values = np.arange(lo, int(np.iinfo(dt).max) + 1, dtype=np.int64)
             self._raw.append(values)
             self._value.append(values.astype(np.float64) * info.scale + info.offset)
-            self._unit.append(np.full(len(values), info.unit, dtype=object))
             self.tables = None
             self.space += 1
         return base - lo
 
-    def values(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    def values(self) -> tuple[np.ndarray, np.ndarray]:
         if self.tables is None:
-            self.tables = (np.concatenate(self._raw), np.concatenate(self._value),
-                           np.concatenate(self._unit))
+            self.tables = (np.concatenate(self._raw), np.concatenate(self._value))
         return self.tables
 
 
@@ -344,29 +406,27 @@ class _Samples:
         frames = np.repeat(np.array([p[0] for p in pieces], dtype=np.int64),
                            [len(p[2]) for p in pieces])
         seqs, ticks, counts = (np.concatenate([p[i] for p in pieces]) for i in (2, 3, 4))
-        sid, name, unit, period = streams.per_stream()
+        sid, period = streams.per_stream()
         known = len(streams.infos)  # the tables grow with new descriptions: their name
         tick = Stepped(ticks, period[frames], counts)
         cols = [Const(run.board), Const(run.run), PerFrame(Coded(frames, sid, ("sid", known)),
                                                            counts),
-                PerFrame(Coded(frames, name, ("name", known)), counts), PerFrame(seqs, counts),
-                tick, TickSeconds(tick, run.tick_hz)]
+                PerFrame(seqs, counts), tick, TickSeconds(tick, run.tick_hz)]
         if all(p[1] is not None for p in pieces):
-            raws, values, units = streams.values()
+            raws, values = streams.values()
             codes = np.concatenate([p[5] for p in pieces]).astype(np.int32)
             codes += np.repeat(np.array([p[1] for p in pieces], dtype=np.int32),
                                [p[5].size for p in pieces])
             space = streams.space
             cols += [Coded(codes, raws, ("raw", space)), Coded(codes, values, ("value", space)),
-                     Coded(codes, units, ("unit", space)), Const(None)]
+                     Const(None)]
         else:
-            cols += self._plain(pieces, frames, counts, unit)
+            cols += self._plain(pieces)
         self.writer.write(cols)
 
-    def _plain(self, pieces: Sequence[tuple[int, Any, Any, Any, Any, np.ndarray]],
-               frames: np.ndarray, counts: np.ndarray, unit: np.ndarray) -> list[Any]:
-        """raw, value, unit and raw_float of a chunk holding a stream of wider or
-        float samples: float samples go in raw_float (raw is empty there)."""
+    def _plain(self, pieces: Sequence[tuple[int, Any, Any, Any, Any, np.ndarray]]) -> list[Any]:
+        """raw, value and raw_float of a chunk holding a stream of wider or float
+        samples: float samples go in raw_float (raw is empty there)."""
         has_float = any(p[5].dtype.kind == "f" for p in pieces)
         raws, values, floats = [], [], []
         for p in pieces:
@@ -379,8 +439,7 @@ class _Samples:
             else:
                 raws.append(as_float if has_float else raw.astype(np.int64))
                 floats.append(np.full(raw.size, np.nan))
-        units = Coded(frames, unit, ("units", len(self.streams.infos)))
-        return [np.concatenate(raws), np.concatenate(values), PerFrame(units, counts),
+        return [np.concatenate(raws), np.concatenate(values),
                 np.concatenate(floats) if has_float else Const(None)]
 
 

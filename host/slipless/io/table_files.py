@@ -43,6 +43,21 @@ def find_table(folder: Path, name: str) -> Path | None:
     return None
 
 
+def column_names(path: Path) -> list[str]:
+    """The columns a table holds (a dataset's partition keys included)."""
+    try:
+        if path.suffix == ".csv":
+            import csv
+
+            with path.open(newline="", encoding="utf-8") as f:
+                return next(csv.reader(f), [])
+        from slipless.io.table_parquet import parquet_columns
+
+        return parquet_columns(path)
+    except (OSError, ValueError) as exc:
+        raise InputError(f"{path}: cannot read ({exc})") from exc
+
+
 def read_columns(path: Path, columns: Sequence[str],
                  kinds: Mapping[str, str] | None = None) -> dict[str, np.ndarray]:
     """Named columns of a table (CSV file, Parquet file or dataset folder).

@@ -12,9 +12,10 @@ row-group buffer, never by the table. Kinds:
          in CSV, timestamp[ns, tz=UTC] in Parquet
 
 CSV is one file per table; Parquet is one file per table, or a hive-partitioned
-dataset folder (`samples/board=1/run=2/part-0.parquet`) when the spec names
-partition columns. Each Parquet file carries the spec (units, kinds) as JSON
-in its key-value metadata, plus whatever the writer was given for that part.
+dataset folder (`samples/board=1/run=2/stream=0/part-0.parquet`) when the spec
+names partition columns: these are in the path, not in the files. Each Parquet
+file carries the spec (units, kinds) as JSON in its key-value metadata, plus
+whatever the writer was given for that part.
 
 Besides arrays and lists a batch may hold compact columns (Const, Coded,
 TickSeconds, and the decoder's frames' form: PerFrame, Stepped); writers
@@ -67,7 +68,7 @@ class Spec:
     name: str
     columns: tuple[Col, ...]
     partition: tuple[str, ...] = ()  # hive partition columns (Parquet only)
-    split_by: str = ""  # Parquet: one file per value of this column in each partition
+    split_by: str = ""  # Parquet: a partition level below the others, split frame by frame
 
     @property
     def names(self) -> tuple[str, ...]:

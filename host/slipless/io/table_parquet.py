@@ -1,6 +1,6 @@
 """Parquet for table_io: one file per table, or a hive-partitioned dataset.
 
-Batches are kept per part (a partition, and within it a file per value of
+Batches are kept per part (a partition, and within it a folder per value of
 the spec's split_by column) in the compact form they came in (frames' form,
 codes), and every ROW_GROUP_ROWS rows become one row group: the columns are
 made into Arrow arrays and encoded on the Background lanes, so the caller
@@ -303,7 +303,9 @@ class ParquetWriter(TableWriter):
         self._buffered = 0
         self._clock = 0
         self.written: list[Path] = []
-        self._data_cols = [c for c in spec.columns if c.name not in spec.partition]
+        # hive levels: the partition columns, then split_by; they are in the path, not the files
+        self._levels = (*spec.partition, spec.split_by) if spec.split_by else spec.partition
+        self._data_cols = [c for c in spec.columns if c.name not in self._levels]
         self._data_at = [spec.names.index(c.name) for c in self._data_cols]
         self._schema = self._pa.schema([self._pa.field(c.name, arrow_type(self._pa, c),
                                                        nullable=not c.required)
@@ -312,7 +314,7 @@ class ParquetWriter(TableWriter):
         self._scratch = threading.local()  # each lane's _Scratch
         if spec.partition:
             path.mkdir(parents=True, exist_ok=True)
-            _clear_dataset(path, spec.partition)
+            _clear_dataset(path, self._levels)
 
     def _write(self, cols: Sequence[Column], n: int) -> None:
         for key, part_cols, rows in self._split(list(cols), n):
@@ -341,14 +343,18 @@ class ParquetWriter(TableWriter):
 
     def _shards(self, where: tuple[Any, ...], cols: list[Column], n: int
                 ) -> list[tuple[tuple[Any, ...], list[Column], int]]:
-        """A file per value of split_by (a constant, or one value per frame)."""
+        """A part per value of split_by (a constant, or one value per frame)."""
         if not self.spec.split_by:
             return [(where, cols, n)]
         split = cols[self.spec.names.index(self.spec.split_by)]
         if isinstance(split, Const):
             return [(where + (split.value,), cols, n)]
-        if not isinstance(split, PerFrame):
-            return [(where, cols, n)]
+        if not isinstance(split, PerFrame):  # a value per row: each row its own frame
+            cols = [plain_values(c, n, k.kind) if isinstance(c, (PerFrame, Stepped)) else c
+                    for c, k in zip(cols, self.spec.columns)]
+            split = PerFrame(np.asarray(plain_values(split, n, INT), dtype=np.int64),
+                             np.ones(n, dtype=np.int64))
+            cols[self.spec.names.index(self.spec.split_by)] = split
         values = frame_values(split.values)
         uniq, first = np.unique(values, return_index=True)
         if len(uniq) == 1:
@@ -379,8 +385,8 @@ class ParquetWriter(TableWriter):
         if len(self._parts) >= MAX_OPEN_PARTS:
             self._close_part(min(self._parts, key=lambda k: self._parts[k].used))
         if self.spec.partition and key:
-            where = key[: len(self.spec.partition)]
-            folder = self.path.joinpath(*(f"{p}={v}" for p, v in zip(self.spec.partition, where)))
+            where = key[: len(self._levels)]
+            folder = self.path.joinpath(*(f"{p}={v}" for p, v in zip(self._levels, where)))
             folder.mkdir(parents=True, exist_ok=True)
             number = self._files.get(where, 0)
             path = folder / f"part-{number}.parquet"
@@ -491,10 +497,12 @@ def _rows_of(col: Column, rows: np.ndarray, kind: str) -> Column:
 
 def _clear_dataset(folder: Path, partition: Sequence[str]) -> None:
     """Remove the part files an earlier write left (as a CSV file is overwritten);
-    only files of our own layout are touched."""
-    pattern = "/".join([f"{p}=*" for p in partition] + ["part-*.parquet"])
-    for old in [*folder.glob(pattern), *folder.glob("part-*.parquet")]:
-        old.unlink()
+    only files of our own layout are touched, at every level of it (an older
+    release wrote samples one level higher: board=B/run=R/part-N.parquet)."""
+    for depth in range(len(partition) + 1):
+        for old in folder.glob("/".join([f"{p}=*" for p in partition[:depth]]
+                                        + ["part-*.parquet"])):
+            old.unlink()
     for depth in range(len(partition), 0, -1):
         for d in folder.glob("/".join(f"{p}=*" for p in partition[:depth])):
             if d.is_dir() and not any(d.iterdir()):
@@ -524,6 +532,16 @@ def read_arrow(path: Path, columns: Sequence[str] | None = None) -> Any:
     names = pq.read_schema(path).names
     return pq.read_table(path, columns=None if columns is None else
                          [c for c in columns if c in names])
+
+
+def parquet_columns(path: Path) -> list[str]:
+    """Column names of a Parquet file or dataset folder (partition keys first)."""
+    _, pq = _pyarrow()
+    if not path.is_dir():
+        return list(pq.read_schema(path).names)
+    files = sorted(path.rglob("*.parquet"))
+    keys = [] if not files else [p.split("=", 1)[0] for p in files[0].relative_to(path).parts[:-1]]
+    return keys + ([] if not files else list(pq.read_schema(files[0]).names))
 
 
 def read_parquet(path: Path, columns: Sequence[str]) -> dict[str, np.ndarray]:
