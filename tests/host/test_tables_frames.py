@@ -240,3 +240,54 @@ def test_parquet_samples_schema_and_a_run_without_tick_rate(tmp_path: Path) -> N
     table = read_arrow(write_tables(still, tmp_path / "b", "parquet", 1 << 20) / "samples")
     assert table.num_rows > 0 and table.column("board_time_s").null_count == table.num_rows
     assert table.column("tick_us").null_count == 0
+
+
+@pytest.mark.parametrize("fmt", ["csv", "parquet"])
+def test_frames_table_from_single_rows_and_stretches(fmt: str, tmp_path: Path) -> None:
+    """The frames table holds single rows and stretches in call order, whatever
+    mix of them a block gets: one row alone, a repeated seq, a frame never
+    received (empty cells), stretches of two runs. The reference is the rows
+    written one by one with Python's csv module (RFC 4180 lines)."""
+    if fmt == "parquet":
+        pytest.importorskip("pyarrow")
+    from slipless.decode.decoder import Arrival
+
+    a, b = RunState(1, 1), RunState(2, 7)
+    radio = Arrival(source=1, wall_ns=1_700_000_000_123_456_789, origin="radio")
+    calls: list[tuple[Any, ...]] = [
+        ("frame", a, 5, wire.SAMPLES, "received", 40, "radio", radio),
+        ("flush",),
+        ("frame", a, 5, wire.SAMPLES, "duplicate", 80, "radio", radio),
+        ("frame", a, 5, wire.SAMPLES, "duplicate", 120, "radio", radio),
+        ("flush",),
+        ("stretch", a, 6, np.array([200, 260, 320]), "", Arrival()),
+        ("frame", a, 9, -1, "missing", -1, "", Arrival()),
+        ("stretch", b, 0, np.array([0, 61]), "mirror", Arrival(source=2)),
+        ("flush",),
+        ("stretch", b, 2, np.array([122]), "mirror", Arrival(source=2)),
+    ]
+    sink = TableSink(tmp_path, fmt)
+    want = []
+    for call in calls:
+        if call[0] == "flush":
+            sink._frames.flush()
+        elif call[0] == "frame":
+            _, run, seq, kind, fate, offset, origin, arr = call
+            sink.frame(run, seq, kind, fate, offset, origin, arr)
+            want.append((run.board, run.run, seq, "missing" if kind < 0 else "samples", fate,
+                         origin if kind >= 0 else "", 1 if kind >= 0 else "",
+                         offset if offset >= 0 else "", arr.wall_ns if arr.wall_ns >= 0 else ""))
+        else:
+            _, run, seq0, offsets, origin, arr = call
+            sink.received_frames(run, seq0, offsets, origin, arr)
+            want += [(run.board, run.run, seq0 + i, "samples", "received", origin, arr.source,
+                      int(o), "") for i, o in enumerate(offsets)]
+    sink.close([], lambda r: 0, lambda r: 0)
+    got = read_decoded(tmp_path, "frames", ("board", "run", "seq", "kind", "fate", "origin",
+                                            "source", "offset_B", "rx_wall_ns"))
+    assert got is not None
+    rows = sorted(zip(*(np.asarray(v, dtype=object).tolist() for v in got.values())),
+                  key=lambda r: (r[0], r[1]))  # Parquet: a file per board and run
+    rows = [tuple("" if v is None else v for v in r) for r in rows]
+    rows = [r[:3] + (r[3] if r[3] != "" else "missing",) + r[4:] for r in rows]
+    assert rows == sorted(want, key=lambda r: (r[0], r[1]))

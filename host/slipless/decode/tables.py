@@ -164,8 +164,8 @@ class _Names:
     def coded(self, texts: Any, name: str) -> Coded:
         if isinstance(texts, _Repeat):  # one text throughout
             code = self.codes.setdefault(texts.value, len(self.codes))
-            return Coded(np.full(texts.n, code, dtype=np.int64), np.array(list(self.codes), dtype=object),
-                         (name, len(self.codes)))
+            return Coded(np.full(texts.n, code, dtype=np.int64),
+                         np.array(list(self.codes), dtype=object), (name, len(self.codes)))
         codes = self.codes
         for t in dict.fromkeys(texts):  # the new ones, in order of appearance
             codes.setdefault(t, len(codes))
@@ -224,7 +224,7 @@ class _FrameRows(_Rows):
         board, run, seq, kind, fate, origin, source, offset, wall = (_joined(c, n) for c in cols)
         kinds = (np.full(n, kind.value, dtype=np.int64) if isinstance(kind, _Repeat)
                  else np.asarray(kind, dtype=np.int64))
-        return [_plain(board), _plain(run), seq, Coded(kinds, _KIND_TEXT, "kind"),
+        return [_plain(board), _plain(run), _plain(seq), Coded(kinds, _KIND_TEXT, "kind"),
                 self._fates.coded(fate, "fate"), self._origins.coded(origin, "origin"),
                 _plain(source), _plain(offset), _plain(wall), _plain(wall)]
 
