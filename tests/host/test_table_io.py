@@ -315,3 +315,20 @@ def test_a_second_decode_replaces_the_dataset(tmp_path: Path) -> None:
     decode_files([VECTORS / "09-end.bin"], tmp_path, "parquet", None)
     assert not old.exists() and read_decoded(tmp_path, "samples", ("raw",))["raw"].tolist() == [
         5, 6, 7, 8]
+
+
+def test_samples_given_row_by_row_land_in_their_stream_folders(tmp_path: Path) -> None:
+    """A samples batch of plain columns (a stream id per row, not per frame) is
+    split into the same stream=S folders as the decoder's frames' form."""
+    pytest.importorskip("pyarrow")
+    s = SPECS["samples"]
+    w = table_files.open_table(tmp_path, s, "parquet")
+    stream = np.array([3, 1, 3, 1, 1])
+    w.write([Const(1), Const(2), stream, np.arange(5), np.arange(5) * 10,
+             np.arange(5) / 100.0, np.arange(5) + 100, np.arange(5) * 0.5, Const(None)])
+    w.close()
+    folders = sorted(p.parent.name for p in (tmp_path / "samples").rglob("*.parquet"))
+    assert folders == ["stream=1", "stream=3"]
+    got = table_parquet.read_parquet(tmp_path / "samples", ("stream", "seq", "raw"))
+    rows = sorted(zip(got["stream"].tolist(), got["seq"].tolist(), got["raw"].tolist()))
+    assert rows == [(1, 1, 101), (1, 3, 103), (1, 4, 104), (3, 0, 100), (3, 2, 102)]
