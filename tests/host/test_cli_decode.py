@@ -11,6 +11,7 @@ from pathlib import Path
 import pytest
 
 from slipless.cli import main
+from slipless.decode.tables import read_decoded
 
 VECTORS = Path(__file__).resolve().parents[2] / "protocol" / "vectors"
 
@@ -33,7 +34,9 @@ def test_decode_writes_tables(tmp_path: Path) -> None:
         ("0", "5", "V"), ("0", "6", "V"), ("1", "7", "A"), ("1", "8", "A")]
     assert "unit" not in samples[0] and "name" not in samples[0]
     assert float(samples[1]["value"]) == pytest.approx(6 * 0.0001)
-    assert float(samples[1]["board_time_s"]) == pytest.approx(0.001)
+    assert samples[1]["tick_us"] == "1000" and "board_time_s" not in samples[0]
+    secs = read_decoded(tmp_path, "samples", ("board_time_s",))  # tick_us / runs' tick_hz
+    assert secs is not None and secs["board_time_s"].tolist() == [0.0, 0.001, 0.0, 0.001]
     runs = rows(tmp_path / "runs.csv")
     assert runs[0]["end_reason"] == "stop_command" and runs[0]["frames_received"] == "4"
     fates = [r["fate"] for r in rows(tmp_path / "frames.csv")]

@@ -62,7 +62,7 @@ def test_wall_clock_steps_move_no_board_time(sim: SimCapture, tmp_path: Path) ->
         outs[name] = out
     # the decoded board times are the same to the microsecond
     for table in ("samples", "events", "status"):
-        keep = ("board", "run", "seq", "tick_us", "board_time_s")
+        keep = ("board", "run", "seq", "tick_us", *(("board_time_s",) if table != "samples" else ()))
         a = [tuple(r[k] for k in keep) for r in _rows(outs["plain"] / f"{table}.csv")]
         b = [tuple(r[k] for k in keep) for r in _rows(outs["stepped"] / f"{table}.csv")]
         assert a == b and a, table

@@ -13,8 +13,8 @@ from pathlib import Path
 import numpy as np
 
 from slipless.io import table_files, table_io
-from slipless.io.table_csv import _second_words, csv_rows
-from slipless.io.table_io import FLOAT, INT, STR, UTC, Coded, Const, PerFrame, Stepped, TickSeconds
+from slipless.io.table_csv import csv_rows
+from slipless.io.table_io import FLOAT, INT, STR, UTC, Coded, Const, PerFrame, Stepped
 from slipless.io.table_io import spec as make_spec
 
 
@@ -53,29 +53,41 @@ def test_coded_floats_in_the_frames_form_are_repr() -> None:
     n = int(counts.sum())
     codes = rng.integers(0, values.size, n)
     tick = Stepped(10**9 + np.cumsum(counts) * 1000, np.full(frames, 1000), counts)
-    cols = [Const(1), PerFrame(np.arange(frames) * 7, counts), tick, TickSeconds(tick, 10**6),
-            Coded(codes, values, "v"), Const("V")]
-    s = make_spec("t", [("a", INT), ("seq", INT), ("tick", INT), ("secs", FLOAT), ("v", FLOAT),
-                        ("u", STR)])
+    cols = [Const(1), PerFrame(np.arange(frames) * 7, counts), tick, Coded(codes, values, "v"),
+            Const("V")]
+    s = make_spec("t", [("a", INT), ("seq", INT), ("tick", INT), ("v", FLOAT), ("u", STR)])
     rows = list(csv.reader(io.StringIO(csv_rows(s, cols).decode(), newline="")))
-    assert [r[4] for r in rows] == [float.__repr__(v) for v in values[codes].tolist()]
-    assert [r[3] for r in rows] == [repr(t / 10**6) for t in tick.expand().tolist()]
+    assert [r[3] for r in rows] == [float.__repr__(v) for v in values[codes].tolist()]
+    assert [r[2] for r in rows] == [str(t) for t in tick.expand().tolist()]
 
 
-def test_second_texts_are_repr_for_every_remainder() -> None:
-    # tick = s * 10**k + u: the last k digits of the tick, and the fraction that
-    # repr(tick / 10**k) prints after the seconds (reference: CPython's repr)
-    for k in range(1, 7):
-        digits, frac, length = _second_words(k)
-        rng = np.random.default_rng(k)
-        us = np.arange(10**k) if k <= 4 else np.concatenate(
-            [np.arange(2000), rng.integers(0, 10**k, 20_000), 10**k - np.arange(1, 2000)])
-        for u in us.tolist():
-            s = int(rng.integers(1, 10**7))
-            want = repr((s * 10**k + u) / 10**k)
-            text = int(frac[u]).to_bytes(8, "little")[k + 2 - int(length[u]) : k + 2]
-            assert (str(s).encode() + text[:-1]).decode() == want and text.endswith(b",")
-            assert int(digits[u]).to_bytes(8, "little")[: k + 1] == b"%0*d," % (k, u)
+def test_tick_texts_in_the_frames_form_are_decimal() -> None:
+    # a tick is placed as its digits above the last six, then those six from a
+    # table: every width from "0" up, across each power of ten, in frames whose
+    # leading texts differ in length (reference: Python's int to str, read back
+    # with the csv module, RFC 4180)
+    rng = np.random.default_rng(5)
+    starts = [0, 1, 9, 10, 999, 999_999, 1_000_000, 9_999_990, 10**10 - 3, 10**13 + 7,
+              10**14 - 5, 10**14, 2**62]
+    seqs = [0, 5, 10**9, 7]
+    for start in starts:
+        for step in (1, 7, 1000):
+            frames = 30
+            counts = rng.integers(1, 9, frames)
+            first = start + np.concatenate([[0], np.cumsum(counts)[:-1]]) * step
+            tick = Stepped(first.astype(np.int64), np.full(frames, step), counts)
+            n = int(counts.sum())
+            codes = rng.integers(0, 3, n)
+            cols = [Const(2), PerFrame(np.array(seqs * 8)[:frames], counts), tick,
+                    Coded(codes, np.array([1, -20, 300]), "raw"), Const(None)]
+            s = make_spec("t", [("a", INT), ("seq", INT), ("tick", INT), ("raw", INT),
+                                ("f", FLOAT)])
+            rows = list(csv.reader(io.StringIO(csv_rows(s, cols).decode(), newline="")))
+            want = [str(t) for t in tick.expand().tolist()]
+            assert [r[2] for r in rows] == want, (start, step)
+            assert [r[1] for r in rows] == [str(v) for v in np.repeat(cols[1].values, counts)]
+            assert [r[3] for r in rows] == [str(v) for v in np.array([1, -20, 300])[codes]]
+            assert all(r[0] == "2" and r[4] == "" for r in rows)
 
 
 def test_utc_cells_are_numpy_iso_8601_text() -> None:

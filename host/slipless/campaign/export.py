@@ -67,7 +67,8 @@ def _manifest(out: Path, folder: Path, where: str | None) -> Path:
                      "tables": {name: {c.name: c.unit for c in spec.columns}
                                 for name, spec in SPECS.items()}},
            "notes": ["an empty unit: a count, a code or text",
-                     "samples.value: in its stream's unit (streams.unit, by board, run and stream)"]}
+                     "samples.value: in its stream's unit (streams.unit, by board, run and stream)",
+                     "samples board seconds: tick_us / runs.tick_hz (by board and run)"]}
     path = out / MANIFEST
     path.write_text(json.dumps(doc, indent=1) + "\n")
     return path

@@ -34,7 +34,6 @@ from slipless.io.table_io import (
     Spec,
     Stepped,
     TableWriter,
-    TickSeconds,
     check_format,
     spec,
 )
@@ -49,13 +48,14 @@ _RUN = (("board", INT), ("run", INT))
 _TIME = (("tick_us", INT, "us"), Col("board_time_s", FLOAT, "s", encoding="split"))
 
 SPECS: dict[str, Spec] = {s.name: s for s in (
-    # samples: the columns every sample has are required in Parquet (board_time_s is
-    # missing under a descriptor with tick_hz 0); the values keep no page statistics
-    # (readers filter on stream, seq and times; min/max per page costs time). A stream's
-    # name and unit are in `streams`, not repeated on every row (a sixth of the CSV text).
+    # samples: the columns every sample has are required in Parquet; the values keep no
+    # page statistics (readers filter on stream, seq and tick; min/max per page costs
+    # time). What follows from a stream or a run is not repeated on every row: the
+    # stream's name and unit are in `streams` (a sixth of the CSV text), and board_time_s
+    # is tick_us / the run's tick_hz in `runs` (a fifth of the rest, and of Parquet's
+    # encoding time). read_decoded gives all three back as columns.
     spec("samples", [*_RUN, Col("stream", INT, required=True),
                      Col("seq", INT, required=True), Col("tick_us", INT, "us", required=True),
-                     _TIME[1],
                      Col("raw", INT, "count", statistics=False),
                      Col("value", FLOAT, "streams.unit", encoding="dictionary", statistics=False),
                      Col("raw_float", FLOAT, statistics=False)]),
@@ -89,6 +89,7 @@ SCHEMAS: dict[str, tuple[str, ...]] = {
 SCHEMAS["samples"] = ("board", "run", "stream", "name", "seq", "tick_us", "board_time_s", "raw",
                       "value", "unit")
 _NAMED = ("name", "unit")  # samples' columns that come from streams when a table lacks them
+_LOOKED_UP = {"name": STR, "unit": STR, "board_time_s": FLOAT}  # ... and the run's tick rate
 
 
 
@@ -99,28 +100,61 @@ def read_decoded(folder: Path, name: str, columns: Sequence[str]) -> dict[str, n
     if path is None:
         return None
     kinds = {c.name: c.kind for c in SPECS[name].columns}
-    named = [c for c in columns if c in _NAMED] if name == "samples" else []
-    if named and not set(named) <= set(column_names(path)):
-        return _with_names(folder, path, list(columns), kinds)
+    if name == "samples":
+        kinds.update(_LOOKED_UP)  # typed alike where an older release stored them
+        have = set(column_names(path))
+        looked_up = [c for c in columns if c in _LOOKED_UP and c not in have]
+        if looked_up:
+            return _samples_looked_up(folder, path, list(columns), looked_up, kinds)
     return read_columns(path, columns, kinds)
 
 
-def _with_names(folder: Path, path: Path, columns: list[str],
-                kinds: dict[str, str]) -> dict[str, np.ndarray]:
-    """Samples' columns with each row's stream name and unit looked up in
-    `streams` (a run lists each of its streams once there)."""
+def _samples_looked_up(folder: Path, path: Path, columns: list[str], looked_up: list[str],
+                       kinds: dict[str, str]) -> dict[str, np.ndarray]:
+    """Samples' columns with what each row's stream or run holds looked up: the
+    stream's name and unit in `streams` (a run lists each of its streams once
+    there), board_time_s as tick_us / the run's tick_hz in `runs` (null at 0 Hz).
+    Folders of older releases have these columns in the samples table itself."""
     keys = ("board", "run", "stream")
-    got = read_columns(path, [c for c in dict.fromkeys([*columns, *keys]) if c not in _NAMED], kinds)
-    streams = read_decoded(folder, "streams", [*keys, *_NAMED])
-    if streams is None:
-        raise InputError(f"{folder}: samples without a streams table (their names and units)")
-    n = len(got["stream"])
+    extra = ["tick_us"] if "board_time_s" in looked_up else []
+    got = read_columns(path, [c for c in dict.fromkeys([*columns, *keys, *extra])
+                              if c not in looked_up], kinds)
+    out = {c: got[c] for c in columns if c not in looked_up}
+    named = [c for c in looked_up if c in _NAMED]
+    if named:
+        streams = read_decoded(folder, "streams", [*keys, *named])
+        if streams is None:
+            raise InputError(f"{folder}: samples without a streams table (their names and units)")
+        at = _row_in(got, streams, keys, f"{folder}: samples of a stream its streams table "
+                                         "does not list")
+        out.update({c: streams[c][at] for c in named})
+    if extra:
+        runs = read_decoded(folder, "runs", [*keys[:2], "tick_hz"])
+        if runs is None:
+            raise InputError(f"{folder}: samples without a runs table (their tick rates)")
+        at = _row_in(got, runs, keys[:2], f"{folder}: samples of a run its runs table "
+                                          "does not list")
+        hz = runs["tick_hz"][at].astype(np.float64)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            seconds = got["tick_us"] / hz
+        out["board_time_s"] = np.where(hz > 0, seconds, np.nan)
+    return {c: out[c] for c in columns}
+
+
+def _row_in(rows: dict[str, np.ndarray], table: dict[str, np.ndarray], keys: Sequence[str],
+            unknown: str) -> np.ndarray:
+    """For each row, the index of the table's row with the same keys (a few
+    streams or runs: one mask each); InputError `unknown` when one has none."""
+    n = len(rows[keys[0]])
     at = np.full(n, -1, dtype=np.int64)
-    for i, key in enumerate(zip(*(streams[k].tolist() for k in keys))):
-        at[(got["board"] == key[0]) & (got["run"] == key[1]) & (got["stream"] == key[2])] = i
+    for i, key in enumerate(zip(*(table[k].tolist() for k in keys))):
+        match = np.ones(n, dtype=bool)
+        for k, v in zip(keys, key):
+            match &= rows[k] == v
+        at[match] = i
     if (at < 0).any():
-        raise InputError(f"{folder}: samples of a stream its streams table does not list")
-    return {c: streams[c][at] if c in _NAMED else got[c] for c in columns}
+        raise InputError(unknown)
+    return at
 
 
 _CODED_BITS = 16  # sample types of at most this many bits are formatted once per value
@@ -411,7 +445,7 @@ class _Samples:
         tick = Stepped(ticks, period[frames], counts)
         cols = [Const(run.board), Const(run.run), PerFrame(Coded(frames, sid, ("sid", known)),
                                                            counts),
-                PerFrame(seqs, counts), tick, TickSeconds(tick, run.tick_hz)]
+                PerFrame(seqs, counts), tick]
         if all(p[1] is not None for p in pieces):
             raws, values = streams.values()
             codes = np.concatenate([p[5] for p in pieces]).astype(np.int32)

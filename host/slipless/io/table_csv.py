@@ -469,8 +469,8 @@ class _RightTexts:
 
 # ---- samples in their frames' form --------------------------------------------------------
 FRAME_ROWS = 1 << 16  # rows placed at once: each temporary stays near half a megabyte
-_MAX_TICK_DIGITS = 6  # tick rates up to 10**6 Hz (the board's microseconds) take this path
-_MAX_SECOND_DIGITS = 8  # seconds since boot below 10**8 (three years): one 64-bit word
+_LOW_DIGITS = 6  # a tick's text: its digits above the last six, then those six from a table
+_MAX_HIGH_DIGITS = 8  # ticks below 10**14 (three years of microseconds): one 64-bit word
 _U64 = np.uint64
 
 
@@ -484,47 +484,17 @@ def _digit_words(values: np.ndarray, digits: int) -> np.ndarray:
     return out
 
 
-_SECOND_LUTS: dict[int, tuple[np.ndarray, np.ndarray, np.ndarray]] = {}
-_SECOND_LUTS_LOCK = threading.Lock()
+_LOW_TEXT: list[np.ndarray] = []
+_LOW_TEXT_LOCK = threading.Lock()
 
 
-def _second_luts(k: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """For u in 0..10**k - 1 (the part of a tick below a second at 10**k Hz):
-    the tick's last k digits and ',' as uint64 bytes; the fraction of the
-    seconds' repr ('.5,', '.25,', '.0,') right-aligned in a uint64's 8 bytes;
-    its length."""
-    with _SECOND_LUTS_LOCK:
-        got = _SECOND_LUTS.get(k)
-        if got is None:
-            digits, frac, length = _second_words(k)
-            got = _SECOND_LUTS[k] = (digits, frac << _U64(8 * (6 - k)), length.astype(np.int16))
-        return got
-
-
-def _second_words(k: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """_second_luts as uint64 words (the fraction's text ending at byte k + 1)."""
-    if k <= 3:  # a thousand values at most: from their text
-        texts = [b"%0*d" % (k, u) for u in range(10**k)]
-        fracs = [(b"." + t.rstrip(b"0") if u else b".0") + b"," for u, t in enumerate(texts)]
-        return (np.array([int.from_bytes(t + b",", "little") for t in texts], dtype=_U64),
-                np.array([int.from_bytes(f.rjust(k + 2, b"\0"), "little") for f in fracs],
-                         dtype=_U64),
-                np.array([len(f) for f in fracs], dtype=np.int64))
-    # u = a * 1000 + b: the k - 3 digits of a, then the three of b
-    high_digits, high_frac, high_len = _second_words(k - 3)
-    head = high_digits & _U64((1 << (8 * (k - 3))) - 1)  # a's digits without the comma
-    tail, tail_frac, tail_len = _second_words(3)  # b's digits, its stripped fraction
-    digits = head[:, None] | (tail[None, :] << _U64(8 * (k - 3)))
-    kept = tail_len - 2  # digits of b before its trailing zeros
-    # b > 0: '.', a's digits, b's kept digits, ',' ending at byte k + 1
-    b_bytes = tail_frac >> (8 * (4 - kept)).astype(_U64)  # b's kept digits and ','
-    b_part = (b_bytes << (8 * (k + 1 - kept)).astype(_U64)) | (
-        _U64(ord(".")) << (8 * (3 - kept)).astype(_U64))
-    frac = b_part[None, :] | (head[:, None] << (8 * (4 - kept)).astype(_U64)[None, :])
-    length = np.broadcast_to(k - 1 + kept, frac.shape).copy()
-    frac[:, 0] = high_frac << _U64(24)  # b == 0: a's own fraction text, moved to the end
-    length[:, 0] = high_len
-    return digits.reshape(-1), frac.reshape(-1), length.reshape(-1)
+def _low_text() -> np.ndarray:
+    """For u in 0..10**6 - 1: its six digits (zero-padded) and ',' as uint64 bytes."""
+    with _LOW_TEXT_LOCK:
+        if not _LOW_TEXT:
+            _LOW_TEXT.append(_digit_words(np.arange(10**_LOW_DIGITS, dtype=np.int64), _LOW_DIGITS)
+                             | _U64(ord(",") << (8 * _LOW_DIGITS)))
+        return _LOW_TEXT[0]
 
 
 def _pack(parts: Sequence[tuple[int, np.ndarray, int]], n: int, width: int) -> np.ndarray:
@@ -548,16 +518,14 @@ class FramesText:
     """The samples table's lines from its frames' form, without the word matrix.
 
     A batch shaped as TableSink writes samples (constants; columns with one
-    value per frame; a Stepped tick; its TickSeconds at 10..10**6 Hz; Coded
-    values with the constants after them) is placed piece by piece into the
-    output: each row's end is known from the lengths of its pieces, so the
-    value text (right-aligned, from a table per code), the seconds' fraction
-    (right-aligned, from a table per tick remainder), the frame's text and the
-    fixed-width tick text are copied to their places in that order. A piece
-    copied right-aligned may cover bytes to its left, and the frame's text may
-    reach past its end; the pieces written after it restore those bytes, and
-    every piece stays inside its own row. Anything else, and any block the
-    checks refuse, goes through the word matrix.
+    value per frame; a Stepped tick; Coded values with the constants after
+    them) is placed piece by piece into the output: each row's end is known
+    from the lengths of its pieces, so the value text (right-aligned, from a
+    table per code), the frame's text and the tick's text are copied to their
+    places in that order. A piece copied right-aligned may cover bytes to its
+    left, and the frame's text may reach past its end; the pieces written after
+    it restore those bytes, and every piece stays inside its own row. Anything
+    else, and any block the checks refuse, goes through the word matrix.
     """
 
     def __init__(self, form: _CsvFormat) -> None:
@@ -577,27 +545,21 @@ class FramesText:
             pieces.append(placed if placed is not None else self.form.lines(part, hi - lo))
         return pieces
 
-    def _plan(self, cols: Sequence[Column]) -> tuple[int, int] | None:
-        """(the tick's column, the tick rate's digits): the columns before the tick
-        have one value per frame, those after its seconds are Coded (and constants)."""
+    def _plan(self, cols: Sequence[Column]) -> int | None:
+        """The tick's column: the columns before it have one value per frame,
+        those after it are Coded (and constants)."""
         kinds = self.form._kinds
         i = 0
         while i < len(cols) and isinstance(cols[i], (Const, PerFrame)):
             i += 1
-        if i + 2 >= len(cols) or not isinstance(cols[i], Stepped) or kinds[i] != INT:
+        if i + 1 >= len(cols) or not isinstance(cols[i], Stepped) or kinds[i] != INT:
             return None
-        secs = cols[i + 1]
-        if not isinstance(secs, TickSeconds) or secs.tick is not cols[i] or kinds[i + 1] != FLOAT:
-            return None
-        k = len(str(secs.tick_hz)) - 1
-        if secs.tick_hz != 10**k or not 1 <= k <= _MAX_TICK_DIGITS:
-            return None
-        rest = cols[i + 2 :]
+        rest = cols[i + 1 :]
         if not isinstance(rest[0], Coded) or not all(
                 isinstance(c, Const) or (isinstance(c, Coded) and c.codes is rest[0].codes)
                 for c in rest):
             return None
-        return i, k
+        return i
 
     def _frame_texts(self, cols: Sequence[Column], frames: int) -> tuple[np.ndarray, np.ndarray]:
         """Each frame's text (its leading cells, each with its comma), left-aligned
@@ -678,44 +640,31 @@ class FramesText:
         local.at = at + size
         return buf[at : at + size]
 
-    def _place(self, plan: tuple[int, int], cols: Sequence[Column], n: int
-               ) -> memoryview | None:
-        t, k = plan
+    def _place(self, t: int, cols: Sequence[Column], n: int) -> memoryview | None:
         step: Stepped = cols[t]
         counts = step.counts
         frames = len(counts)
-        hz = 10**k
         tick = step.expand()
         low, high = int(tick.min()), int(tick.max())
-        if low < 0 or high >= MAX_EXACT or len(str(high // hz)) > _MAX_SECOND_DIGITS:
+        if low < 0 or high >= _P10[_LOW_DIGITS + _MAX_HIGH_DIGITS]:
             return None
-        sec, u = np.divmod(tick, hz)
-        if low < hz and bool(((tick > 0) & (tick * 10_000 < hz)).any()):
-            return None  # repr writes 5e-05: those rows take the word matrix
-        shapes = _TickShapes(sec, u, k, low, high, n)
-        digits, frac, frac_len = _second_luts(k)
-        codes = cols[t + 2].codes
-        v_text, v_len = self.form.right_lut(cols[t + 2 :], self.form._kinds[t + 2 :],
-                                            self.form._seps[t + 2 :], codes)
+        shapes = _TickShapes(tick, low, high, n)
+        codes = cols[t + 1].codes
+        v_text, v_len = self.form.right_lut(cols[t + 1 :], self.form._kinds[t + 1 :],
+                                            self.form._seps[t + 1 :], codes)
         a_text, a_len = self._frame_texts(cols[:t], frames)
         fr = np.repeat(np.arange(frames), counts)
         len_v = v_len[codes]
         row_a = a_len[fr]
         size = row_a + shapes.width
-        size += frac_len[u]
         size += len_v
-        if int((size - len_v).min()) < 8:
-            return None  # a fraction would reach into the row before
         end = np.cumsum(size)
         out = self._buffer(int(end[-1]))
         _write_value_texts(out, end, v_text, codes, len_v, size)
-        end -= len_v  # now where the fraction ends
-        _stride1(out, 8)[end - 8] = np.take(frac, u, mode="clip").view("V8")
-        start = end - size  # (end less the value text) - (size less it) = the row's start
-        start += len_v
+        start = end - size
         _write_frame_texts(out, start, a_text, a_len, fr, shapes.narrowest)
         start += row_a  # now where the tick begins
-        shapes.write(out, start, digits)
+        shapes.write(out, start)
         return memoryview(out.data)
 
 
@@ -778,60 +727,59 @@ def _write_frame_texts(out: np.ndarray, start: np.ndarray, text: np.ndarray,
 
 
 class _TickShapes:
-    """The tick and the seconds before their fraction ('12345000,12' of
-    '12345000,12.345,'), which has a fixed width for all rows whose seconds have
-    the same number of digits: seconds, the tick's last k digits, ',', seconds.
-    In the first second the tick has no leading zeros: its digits, ',', '0'."""
+    """Each row's tick and its comma ('12345000,'), written in groups of one
+    width: the digits above the last six (rows share them: made once each when
+    the block spans few), the last six from a table, ','. A tick below 10**6
+    has no leading zeros: its own digits and ','."""
 
-    def __init__(self, sec: np.ndarray, u: np.ndarray, k: int, low: int, high: int,
-                 n: int) -> None:
-        self.sec, self.u, self.k = sec, u, k
-        hz = 10**k
-        self.s0, s1 = max(low // hz, 1), max(high // hz, 1)
-        self.lows = np.arange(self.s0, s1 + 1, dtype=np.int64) if s1 - self.s0 <= n else None
-        ws0, ws1 = len(str(self.s0)), len(str(s1))
-        self.groups: list[tuple[int, int, np.ndarray | None]] = []  # (seconds' digits or 0,
-        # the tick's digits in the first second, rows)
-        first = None if low >= hz else sec == 0
-        if first is None and ws0 == ws1:
-            self.width: Any = 2 * ws0 + k + 1
+    def __init__(self, tick: np.ndarray, low: int, high: int, n: int) -> None:
+        k = _LOW_DIGITS
+        self.high, self.u = np.divmod(tick, _P10[k])
+        self.h0, h1 = max(low // _P10[k], 1), max(high // _P10[k], 1)
+        self.highs = np.arange(self.h0, h1 + 1, dtype=np.int64) if h1 - self.h0 <= n else None
+        wh0, wh1 = len(str(self.h0)), len(str(h1))
+        self.groups: list[tuple[int, int, np.ndarray | None]] = []  # (high part's digits or
+        # 0, the digits of a tick below 10**6, rows)
+        first = None if low >= _P10[k] else self.high == 0
+        if first is None and wh0 == wh1:
+            self.width: Any = wh0 + k + 1
             self.narrowest = self.width
-            self.groups.append((ws0, 0, None))
+            self.groups.append((wh0, 0, None))
             return
-        width = np.zeros(len(sec), dtype=np.int64)
-        for ws in range(ws0, ws1 + 1):
-            rows = (sec >= _P10[ws - 1]) & (sec < _P10[ws])
-            width[rows] = 2 * ws + k + 1
-            self.groups.append((ws, 0, np.flatnonzero(rows)))
+        width = np.zeros(len(tick), dtype=np.int64)
+        for wh in range(wh0, wh1 + 1):
+            rows = (self.high >= _P10[wh - 1]) & (self.high < _P10[wh])
+            width[rows] = wh + k + 1
+            self.groups.append((wh, 0, np.flatnonzero(rows)))
         if first is not None:
+            u = self.u
             for d in range(1, k + 1):
                 rows = first & (u < _P10[d]) & ((u >= _P10[d - 1]) if d > 1 else True)
-                width[rows] = d + 2
+                width[rows] = d + 1
                 self.groups.append((0, d, np.flatnonzero(rows)))
         self.width = width
         self.narrowest = int(width.min())
 
-    def write(self, out: np.ndarray, start: np.ndarray, digits: np.ndarray) -> None:
-        for ws, d, rows in self.groups:
+    def write(self, out: np.ndarray, start: np.ndarray) -> None:
+        k, low_text = _LOW_DIGITS, _low_text()
+        for wh, d, rows in self.groups:
             if rows is not None and not rows.size:
                 continue
-            at, sec, u = (start, self.sec, self.u) if rows is None else (
-                start[rows], self.sec[rows], self.u[rows])
-            if ws:
-                if self.lows is not None:  # few seconds: each one's digits once
-                    s_text = np.take(_digit_words(self.lows, ws), sec - self.s0, mode="clip")
+            at, high, u = (start, self.high, self.u) if rows is None else (
+                start[rows], self.high[rows], self.u[rows])
+            if wh:
+                if self.highs is not None:  # few distinct: each one's digits once
+                    h_text = np.take(_digit_words(self.highs, wh), high - self.h0, mode="clip")
                 else:
-                    s_text = _digit_words(sec, ws)
-                k = self.k
-                width = 2 * ws + k + 1
-                words = _pack([(0, s_text, ws), (ws, np.take(digits, u, mode="clip"), k + 1),
-                               (ws + k + 1, s_text, ws)], len(sec), width)
-            else:
-                width = d + 2
-                words = _pack([(0, _digit_words(u, d), d),
-                               (d, np.full(len(u), _U64(ord(",") | ord("0") << 8)), 2)],
+                    h_text = _digit_words(high, wh)
+                width = wh + k + 1
+                words = _pack([(0, h_text, wh), (wh, np.take(low_text, u, mode="clip"), k + 1)],
                               len(u), width)
-            x = np.ndarray((len(sec),), dtype=f"V{width}", buffer=words,
+            else:
+                width = d + 1
+                words = _pack([(0, _digit_words(u, d) | _U64(ord(",") << (8 * d)), d + 1)],
+                              len(u), width)
+            x = np.ndarray((len(u),), dtype=f"V{width}", buffer=words,
                            strides=(words.shape[1] * 8,))
             _stride1(out, width)[at] = x
 
