@@ -234,6 +234,32 @@ def test_samples_board_time_from_the_runs_tick_rate(case: str, tmp_path: Path) -
     assert got is not None and got["board_time_s"].tolist() == [0.25]
 
 
+def test_samples_whose_stream_or_run_is_not_listed_are_a_clear_error(
+        tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    """A decode folder that lost its streams or runs table, or whose runs table
+    does not list a run of the samples: one line naming what is missing, exit 2
+    from a command (no traceback), and no made-up names or times."""
+    from slipless.cli import main
+    from slipless.errors import InputError
+
+    folder = write_tables(capture(*CASES["microseconds"], seed=7), tmp_path / "t", "csv", 1 << 20)
+    runs = (folder / "runs.csv").read_text()
+    (folder / "runs.csv").unlink()
+    with pytest.raises(InputError, match="without a runs table"):
+        read_decoded(folder, "samples", ("board_time_s",))
+    assert main(["pulses", str(folder), "--out", str(tmp_path / "o"), "--no-plots",
+                 "--quiet"]) == 2
+    err = capsys.readouterr().err
+    assert "without a runs table" in err and "Traceback" not in err and err.count("\n") == 1
+    lines = runs.splitlines(keepends=True)
+    (folder / "runs.csv").write_text(lines[0] + lines[1].replace("1,2,", "1,9,", 1))
+    with pytest.raises(InputError, match="run its runs table does not list"):
+        read_decoded(folder, "samples", ("board_time_s",))
+    (folder / "streams.csv").unlink()
+    with pytest.raises(InputError, match="without a streams table"):
+        read_decoded(folder, "samples", ("name",))
+
+
 def test_parquet_samples_schema_and_a_run_without_tick_rate(tmp_path: Path) -> None:
     """The columns every sample has are required Parquet fields (no definition
     levels), the rest optional; page statistics only on the key columns. A
