@@ -113,3 +113,52 @@ def test_frames_lost_in_a_damaged_stretch_are_corruption(tmp_path: Path,
     doc = json.loads(capsys.readouterr().out)
     assert doc["frames_corrupt"] == 1 and doc["corrupt_segments"] == 1
     assert doc["gaps"][0]["cause"] == "corruption"
+
+
+def _damaged_btsnoop(tmp_path: Path) -> tuple[Path, int]:
+    """The plan's notifications in a btsnoop log (one record each, after the
+    link's GATT discovery), the record of frame HIT damaged: its included
+    length made impossible (btsnoop record layout: references 7a). -> path,
+    the record's bytes (what the reader steps over)."""
+    from test_btsnoop import DISCOVERY, H4_HEADER, disconnected, le_connected, notify_rec
+
+    cap, _ = write(PLAN, tmp_path)
+    with cap.open("rb") as f:
+        values = [r.payload for r in capture.CaptureReader(f) if r.type == capture.RX]
+    data = bytearray(H4_HEADER + le_connected(0x0040) + DISCOVERY)
+    hit = frames(PLAN)[HIT]
+    at = size = 0
+    for i, v in enumerate(values):
+        rec = notify_rec(0x0010, v, stamp_us=0x00E2E7D727519090 + 1000 * i)
+        if v == hit:
+            at, size = len(data), len(rec)
+        data += rec
+    data += disconnected(0x0040)
+    assert size
+    data[at + 4 : at + 8] = b"\xff\xff\xff\xff"
+    out = tmp_path / "hit.log"
+    out.write_bytes(bytes(data))
+    return out, size
+
+
+def test_a_damaged_btsnoop_record_is_one_damaged_segment_and_corruption(
+        tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    """The same story from a btsnoop log: the record the reader stepped over is
+    a damaged segment of the input, its frame a corrupt frame, its gap's cause
+    `corruption`, and the account closes."""
+    path, size = _damaged_btsnoop(tmp_path)
+    facts = collect([path])
+    (acc,) = analyse(facts)
+    assert acc.closes, acc.discrepancies
+    (gap,) = acc.gaps
+    assert (gap.first, gap.last, gap.corrupt, gap.cause) == (HIT, HIT, 1, "corruption")
+    from slipless.loss.report import document
+
+    doc = document([acc], facts, None)
+    assert doc["file_damaged_segments"] == 1 and doc["file_damaged_bytes"] == size
+    assert main(["decode", str(path), "--out", str(tmp_path / "tables")]) == 0
+    out = capsys.readouterr().out
+    assert f"damaged segments 1 ({size:,} B; 1 of them stretches of capture files skipped" in out
+    assert main(["loss", str(path), "--json"]) == 0
+    doc = json.loads(capsys.readouterr().out)
+    assert doc["frames_corrupt"] == 1 and doc["gaps"][0]["cause"] == "corruption"

@@ -14,7 +14,8 @@ What counts as damage, the one rule every summary and note follows:
 
 - damaged segments = corrupt + overlong segments (SPEC section 4, rules 2-3),
   the ones after an input's first delimiter, plus the stretches of the input
-  its reader stepped over (a damaged stretch of a capture file: skip_damaged),
+  its reader stepped over (a damaged stretch of a capture file or btsnoop log:
+  skip_damaged),
   each stretch one segment. All of them are `damaged`, so all count in SPEC
   section 6's D: frames lost to a damaged stretch are corrupt frames, as
   frames lost to a corrupt segment are. file_damaged counts the stretches apart.

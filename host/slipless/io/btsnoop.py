@@ -309,22 +309,27 @@ class _Rec:
 
 def btsnoop_pieces(path: Path, on_progress: Callable[[int], None] | None = None,
                    handles: tuple[int, int] | None = None,
-                   report: BtsnoopReport | None = None) -> Iterator[Piece]:
+                   report: BtsnoopReport | None = None,
+                   on_damage: Callable[[int], None] | None = None) -> Iterator[Piece]:
     """The log's notifications and commands as decoder pieces, in log order.
 
     handles = (data value handle, command value handle) overrides discovery
     (0 for a command handle not known). report, if given, is filled in.
+    on_damage(nbytes): a damaged stretch stepped over, told before the piece
+    after it (the decoder's skip_damaged: one damaged segment, as in a capture).
     """
     report = BtsnoopReport() if report is None else report
     with _open_log(path) as log:
         if handles is not None:
             report.handles, report.handles_from = handles, "given"
             plan = _Plan(Handles(handles[0], handles[1], RECEIVED))
-            yield from _pieces(_att_units(log, report, on_progress), plan, report)
+            yield from _pieces(_att_units(log, report, on_progress, None, on_damage), plan,
+                               report)
             return
         first = log.size // FIRST_PASS_SHARE
         plan = _make_plan(path, log, report, _share(on_progress, log.size, 0, first))
-        units = _att_units(log, report, _share(on_progress, log.size, first, log.size))
+        units = _att_units(log, report, _share(on_progress, log.size, first, log.size), None,
+                           on_damage)
         yield from _pieces(units, plan, report)
 
 
@@ -423,8 +428,11 @@ class _Log:
         return self.size
 
     def records(self, report: BtsnoopReport,
-                on_progress: Callable[[int], None] | None = None) -> Iterator[_Rec]:
-        pos, ahead, in_damage, shown = _FILE_HEAD.size, 0, False, 0
+                on_progress: Callable[[int], None] | None = None,
+                on_damage: Callable[[int], None] | None = None) -> Iterator[_Rec]:
+        """The records in file order, damaged stretches stepped over: each is
+        told to on_damage(nbytes) before the record after it."""
+        pos, ahead, in_damage, shown, stretch = _FILE_HEAD.size, 0, False, 0, 0
         while self.size - pos >= _REC_HEAD.size:
             if on_progress is not None and pos - shown >= PROGRESS_STEP:
                 on_progress(pos - shown)
@@ -440,7 +448,9 @@ class _Log:
                 report.logger_drops = max(report.logger_drops, rec.drops)
                 report.cut_records += rec.cut > 0
                 report.cut_bytes += rec.cut
-                in_damage = False
+                if in_damage and on_damage is not None:
+                    on_damage(stretch)
+                in_damage, stretch = False, 0
                 yield rec
                 pos = rec.end
                 continue
@@ -449,8 +459,10 @@ class _Log:
                 break  # the last record was cut short
             report.damaged_bytes += nxt - pos
             report.damaged_stretches += not in_damage
-            in_damage = True
+            in_damage, stretch = True, stretch + nxt - pos
             pos = nxt
+        if in_damage and on_damage is not None:
+            on_damage(stretch)
         report.truncated_bytes += self.size - pos
         if on_progress is not None:
             on_progress(self.size - shown)
@@ -483,12 +495,14 @@ Unit = tuple[int, int, int, bytes | None, int, bool]
 
 
 def _att_units(log: _Log, report: BtsnoopReport, on_progress: Callable[[int], None] | None,
-               skip: set[int] | None = None) -> Iterator[Unit]:
+               skip: set[int] | None = None,
+               on_damage: Callable[[int], None] | None = None) -> Iterator[Unit]:
     """ATT PDUs in log order; None for the PDU: the connection started or ended. ACL data
-    of the connections in skip (the caller may change it as it goes) is passed over."""
+    of the connections in skip (the caller may change it as it goes) is passed over;
+    on_damage: see _Log.records."""
     channels = _Channels(report)
     l2cap = _Reassembly(report, channels)
-    for rec in log.records(report, on_progress):
+    for rec in log.records(report, on_progress, on_damage):
         direction = rec.flags & RECEIVED
         if rec.ptype == EVENT:
             conn = _link_event(rec.pkt)

@@ -12,13 +12,16 @@ import json
 from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, BinaryIO, Protocol
+from typing import TYPE_CHECKING, Any, BinaryIO, Protocol
 
 from slipless.decode.decoder import Arrival, Decoder
 from slipless.errors import InputError, ProtocolVersionError
 from slipless.io import capture
 from slipless.io.pieces import BTSNOOP_MAGIC, TX_SOURCE_BASE, Piece
 from slipless.protocol import wire
+
+if TYPE_CHECKING:  # read lazily: most inputs are captures
+    from slipless.io.btsnoop import BtsnoopReport
 
 CHUNK = 1 << 20
 PROGRESS_OVER = 4 << 20  # show a progress bar for inputs larger than this
@@ -36,7 +39,8 @@ class Source:
     path: Path
     kind: str  # "capture", "btsnoop", "mirror", "stream"
     size: int
-    stats: capture.ReadStats | None = None  # capture files: damage and cut found while reading
+    # capture files and btsnoop logs: damage (damaged_stretches, damaged_bytes) and cut found
+    stats: capture.ReadStats | BtsnoopReport | None = None
     note: str = ""  # what the reader had to skip, for the summary
 
 
@@ -96,7 +100,8 @@ def pieces(src: Source, on_progress: Callable[[int], None] | None = None,
         from slipless.io.btsnoop import BtsnoopReport, btsnoop_pieces
 
         report = BtsnoopReport()
-        yield from btsnoop_pieces(src.path, on_progress, report=report)
+        yield from btsnoop_pieces(src.path, on_progress, report=report, on_damage=on_damage)
+        src.stats = report
         src.note = report.note(src.path.name)
     else:  # pragma: no cover - classify() makes only the kinds above
         raise InputError(f"{src.path}: unknown input kind {src.kind}")

@@ -44,7 +44,8 @@ A gap's cause (the first that holds, with its evidence):
 - board_overflow: the board's dropped counter places frames in it, or the
   board answered a resend with "no longer held";
 - corruption: damaged segments came in its place (the deframer's, and the
-  stretches of a capture file the reader stepped over: decode/deframe.py);
+  stretches of a capture file or btsnoop log the reader stepped over:
+  decode/deframe.py);
 - rotor_angle: none of these, and it lies in a sector of the turn where such
   gaps gather beyond chance (loss/sector.py: a one-sided binomial test of the
   gaps' angles against the angles of the frames received live);

@@ -87,8 +87,9 @@ def run_dict(a: RunAccount) -> dict[str, Any]:
 
 
 def file_damage(facts: Facts) -> tuple[int, int]:
-    """(stretches, bytes) of the capture files the reader stepped over: damaged
-    segments of their own (decode/deframe.py's rule), beside the deframer's."""
+    """(stretches, bytes) of the capture files and btsnoop logs the readers stepped
+    over: damaged segments of their own (decode/deframe.py's rule), beside the
+    deframer's."""
     stats = [s.stats for s in facts.sources if s.stats is not None]
     return sum(st.damaged_stretches for st in stats), sum(st.damaged_bytes for st in stats)
 
