@@ -343,3 +343,27 @@ def test_frames_table_from_single_rows_and_stretches(fmt: str, tmp_path: Path) -
     rows = [tuple("" if v is None else v for v in r) for r in rows]
     rows = [r[:3] + (r[3] if r[3] != "" else "missing",) + r[4:] for r in rows]
     assert rows == sorted(want, key=lambda r: (r[0], r[1]))
+
+
+def test_the_readme_pandas_join_gives_what_read_decoded_gives(tmp_path: Path,
+                                                              monkeypatch: pytest.MonkeyPatch) -> None:
+    """The README's pandas lines for board seconds, names and units, run as
+    written on a decode folder, give read_decoded's columns."""
+    pytest.importorskip("pandas")
+    import re
+
+    readme = (Path(__file__).parents[2] / "README.md").read_text()
+    (code,) = [c for c in re.findall(r"```python\n(.*?)```", readme, re.S)
+               if "board_time_s" in c and "read_csv" in c]
+    write_tables(capture(*CASES["odd_rate"], seed=8), tmp_path / "out", "csv", 1 << 20)
+    monkeypatch.chdir(tmp_path)
+    space: dict[str, Any] = {}
+    exec(code, space)  # the README's own lines
+    s = space["s"].sort_values(["stream", "seq", "tick_us"], kind="stable")
+    want = read_decoded(tmp_path / "out", "samples", ("stream", "seq", "tick_us", "board_time_s",
+                                                      "name", "unit"))
+    assert want is not None
+    order = np.lexsort((want["tick_us"], want["seq"], want["stream"]))
+    assert s["board_time_s"].tolist() == want["board_time_s"][order].tolist()
+    assert s["name"].tolist() == want["name"][order].tolist()
+    assert s["unit"].fillna("").tolist() == want["unit"][order].tolist()
